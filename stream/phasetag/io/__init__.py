@@ -1,0 +1,1 @@
+"""The shell around the core: tables from disk, wire format, sinks."""
