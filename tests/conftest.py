@@ -23,3 +23,56 @@ def rng():
     import numpy as np
 
     return np.random.default_rng(20261201)
+
+
+# -- the demo's invented world, shared by pipeline, service and report tests --------------
+
+NIGHT_START_UTC = "2026-12-02T02:00:00"
+
+
+@pytest.fixture(scope="session")
+def demo_env():
+    from phasetag.assemble import Environment
+    from phasetag.demo import DEMO_SITE
+
+    return Environment.from_site(DEMO_SITE)
+
+
+@pytest.fixture(scope="session")
+def night_start_tt(demo_env):
+    import numpy as np
+
+    from phasetag.core.timebase import Scale, parse_instant, to_tt
+
+    return int(to_tt(np.array([parse_instant(NIGHT_START_UTC)]), Scale.UTC,
+                     demo_env.leaps)[0][0])
+
+
+@pytest.fixture(scope="session")
+def lantern_table(demo_env, night_start_tt):
+    """A barycentre table for the invented pulsar over a 6-hour night."""
+    from phasetag.assemble import TableCache, build_target
+    from phasetag.config import BarycentreConfig, TargetConfig
+    from phasetag.core.timebase import NS_PER_S
+    from phasetag.demo import data_file
+
+    setup = build_target(TargetConfig(name="lantern", models=[data_file("lantern.toml")]))
+    return TableCache(None, demo_env, BarycentreConfig()).table(
+        setup.position, night_start_tt - 3600 * NS_PER_S, night_start_tt + 6 * 3600 * NS_PER_S)
+
+
+@pytest.fixture
+def lantern(lantern_table):
+    """A fresh TargetSetup for the invented pulsar with two recipes."""
+    from phasetag.assemble import build_target
+    from phasetag.config import RecipeConfig, TargetConfig
+    from phasetag.demo import data_file
+
+    setup = build_target(TargetConfig(
+        name="lantern", models=[data_file("lantern.toml")],
+        template=data_file("lantern-template.toml"), region_radius_deg=1.5,
+        recipes=[RecipeConfig(name="all"),
+                 RecipeConfig(name="hard", energy_min="1 TeV", max_distance_deg=0.3,
+                              min_score=0.5, use_weights=True)]))
+    setup.tagger.table = lantern_table
+    return setup

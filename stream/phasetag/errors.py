@@ -9,7 +9,7 @@ never caught by the service loop's peer-error handling.
 
 from __future__ import annotations
 
-from enum import Enum
+from enum import StrEnum
 
 __all__ = ["InputError", "ModelError", "ConfigError", "EventFileError", "RejectReason"]
 
@@ -36,7 +36,7 @@ class EventFileError(InputError):
     """An event file for offline tagging is invalid."""
 
 
-class RejectReason(str, Enum):
+class RejectReason(StrEnum):
     """Reason codes written to the rejects output (one per refused message or event)."""
 
     MALFORMED_MESSAGE = "malformed_message"

@@ -130,7 +130,8 @@ def test_phase_matches_mpmath_in_a_binary(rng):
     model = make_model(
         frequency_hz="463.123456789012345",
         frequency_derivatives=["-2.1e-15"],
-        binary={"kind": "keplerian", "orbital_period_days": 1.5, "projected_semi_major_axis_lt_s": 3.7,
+        binary={"kind": "keplerian", "orbital_period_days": 1.5,
+                "projected_semi_major_axis_lt_s": 3.7,
                 "eccentricity": 0.17, "periastron_longitude_deg": 211.0,
                 "periastron_epoch_mjd_tdb": "60600.3", "einstein_delay_s": 1e-4},
     )

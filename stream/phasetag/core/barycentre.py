@@ -42,7 +42,6 @@ import erfa
 import numpy as np
 
 from .earth import EarthOrientation, GroundSite, OrbitTrack, tt_julian_date
-from .flags import Quality
 from .timebase import NS_PER_S
 
 __all__ = [
@@ -52,6 +51,7 @@ __all__ = [
     "SkyPosition",
     "BarycentreCalculator",
     "CorrectionTable",
+    "TableSet",
 ]
 
 SPEED_OF_LIGHT = 299_792_458.0  # m/s, exact (SI)
@@ -338,3 +338,73 @@ def _clenshaw_gather(x, coefficients, segment):
         b2 += coefficients[k][segment]
         b1, b2 = b2, b1
     return x * b1 - b2 + coefficients[0][segment]
+
+
+class TableSet:
+    """Non-overlapping ``CorrectionTable`` pieces, looked up by instant.
+
+    Lets a night, or a file spanning years with gaps, be covered only where there are
+    events (one piece per day with data, say). A batch inside one piece, the usual
+    case, goes straight to it.
+    """
+
+    def __init__(self, tables=()):
+        self._tables: list[CorrectionTable] = []
+        self._starts = np.zeros(0, np.int64)
+        for table in tables:
+            self.add(table)
+
+    @property
+    def tables(self) -> tuple[CorrectionTable, ...]:
+        return tuple(self._tables)
+
+    @property
+    def start_ns(self) -> int | None:
+        return self._tables[0].start_ns if self._tables else None
+
+    @property
+    def stop_ns(self) -> int | None:
+        return self._tables[-1].stop_ns if self._tables else None
+
+    def add(self, table: CorrectionTable) -> None:
+        """Insert a piece; pieces overlapping it are replaced (a rebuilt table wins)."""
+        kept = [t for t in self._tables
+                if t.stop_ns <= table.start_ns or t.start_ns >= table.stop_ns]
+        self._tables = sorted([*kept, table], key=lambda t: t.start_ns)
+        self._starts = np.array([t.start_ns for t in self._tables], dtype=np.int64)
+
+    def _piece(self, tt_ns):
+        return np.searchsorted(self._starts, tt_ns, side="right") - 1
+
+    def contains(self, tt_ns) -> np.ndarray:
+        """True where some piece covers the instant."""
+        tt_ns = np.asarray(tt_ns, dtype=np.int64)
+        if not self._tables:
+            return np.zeros(tt_ns.shape, bool)
+        piece = self._piece(tt_ns)
+        stops = np.array([t.stop_ns for t in self._tables], dtype=np.int64)
+        return (piece >= 0) & (tt_ns < stops[np.maximum(piece, 0)])
+
+    def evaluate(self, tt_ns) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """As ``CorrectionTable.evaluate``, across pieces."""
+        tt_ns = np.asarray(tt_ns, dtype=np.int64)
+        if not self._tables or tt_ns.size == 0:
+            return (np.full(tt_ns.shape, np.nan), np.zeros(tt_ns.shape, np.uint32),
+                    np.zeros(tt_ns.shape, bool))
+        piece = self._piece(tt_ns)
+        first, last = int(piece.min()), int(piece.max())
+        if first == last and first >= 0:
+            return self._tables[first].evaluate(tt_ns)
+        values = np.full(tt_ns.shape, np.nan)
+        flags = np.zeros(tt_ns.shape, np.uint32)
+        inside = np.zeros(tt_ns.shape, bool)
+        for index in np.unique(piece[piece >= 0]):
+            rows = piece == index
+            values[rows], flags[rows], inside[rows] = self._tables[index].evaluate(tt_ns[rows])
+        return values, flags, inside
+
+    def missing(self, tt_ns, block_ns: int) -> list[int]:
+        """Starts of the ``block_ns`` blocks holding instants no piece covers."""
+        tt_ns = np.asarray(tt_ns, dtype=np.int64)
+        uncovered = tt_ns[~self.contains(tt_ns)]
+        return sorted(int(b) * block_ns for b in np.unique(uncovered // block_ns))

@@ -834,7 +834,8 @@ def fit_jitter(residuals, sigma, dof: int, model: str = "constant") -> JitterFit
 
 
 def explain_offset(
-    offset_cycles: float, sigma_cycles: float, frequency_hz: float, n_sigma: float = 2.0
+    offset_cycles: float, sigma_cycles: float, frequency_hz: float, n_sigma: float = 2.0,
+    frequency_spread_hz: float = 0.0,
 ) -> list[Explanation]:
     """Time-keeping mistakes Δt whose phase offset frac(ν·Δt) matches ``offset_cycles``.
 
@@ -845,7 +846,10 @@ def explain_offset(
     frequency_hz : float
         Spin frequency ν, Hz.
     n_sigma : float
-        Match when |wrap(offset − ν·Δt)| ≤ n_sigma·σ.
+        Match when |wrap(offset − ν·Δt)| ≤ n_sigma·σ + |Δt|·frequency_spread_hz.
+    frequency_spread_hz : float
+        How far the apparent frequency wanders over the night (Doppler): a time error
+        Δt shifts phase by ν(t)·Δt, so the prediction is only good to |Δt|·spread.
 
     Returns
     -------
@@ -859,7 +863,9 @@ def explain_offset(
     for dt, label in KNOWN_TIME_MISTAKES:
         for sign in (+1.0, -1.0):
             predicted = wrap_cycles(frequency_hz * sign * dt)
-            deviation = abs(wrap_cycles(offset_cycles - predicted)) / sigma_cycles
+            slack = dt * abs(frequency_spread_hz)
+            deviation = max(abs(wrap_cycles(offset_cycles - predicted)) - slack, 0.0) \
+                / sigma_cycles
             if deviation <= n_sigma:
                 out.append(Explanation(sign * dt, label, predicted, deviation))
     return sorted(out, key=lambda e: e.deviation_sigma)
@@ -894,6 +900,7 @@ def diagnose(
     frequency_hz: float,
     tolerance_cycles: float = 0.02,
     tolerance_us: float | None = None,
+    frequency_spread_hz: float = 0.0,
 ) -> ClockVerdict:
     """Judge the clock chain from chunk offsets and the whole-night fit.
 
@@ -910,6 +917,9 @@ def diagnose(
         practice, REFERENCES §8).
     tolerance_us : float, optional
         Also a limit in µs; the effective tolerance is the smaller of the two.
+    frequency_spread_hz : float
+        Half-range of the apparent (Doppler-shifted) frequency over the night; widens
+        the match of known time-keeping mistakes (see :func:`explain_offset`).
 
     Returns
     -------
@@ -942,7 +952,9 @@ def diagnose(
 
     night_ok = night_fit is not None and bool(night_fit.detected) \
         and math.isfinite(night_fit.shift_cycles)
-    if not night_ok and n_used == 0:
+    if not night_ok and n_used < MIN_CHUNKS:
+        # a few chunks over the 3σ line while the whole night shows nothing are what
+        # chance gives among many chunks: not a measurement to judge the clock by
         if night_fit is None or not night_fit.sum_w > 0:
             lines.append(f"No pulsed signal: no events tonight ({len(chunks)} chunks).")
         else:
@@ -950,7 +962,8 @@ def diagnose(
                 f"No pulsed signal: night amplitude {night_fit.amplitude:.4g} ± "
                 f"{night_fit.amplitude_sigma:.4g} weighted counts "
                 f"({night_fit.significance_sigma:.1f}σ after the search over phase), "
-                f"and none of the {len(chunks)} chunks detected the pulse."
+                f"and {n_used or 'none'} of the {len(chunks)} chunks detected the pulse"
+                + (" (as chance allows)." if n_used else ".")
             )
         lines.append(
             "The clock chain cannot be judged tonight. A constant offset would not hide the "
@@ -1129,7 +1142,8 @@ def diagnose(
     if kind in ("offset", "step") or (kind == "none" and off_sig >= MARGINAL_SIGMA):
         what, value, err = ("offset", off, off_sigma) if kind != "step" else \
             ("step", step.size_cycles, step.size_sigma_cycles)  # type: ignore[union-attr]
-        explanations = explain_offset(value, err, nu)
+        explanations = explain_offset(value, err, nu,
+                                      frequency_spread_hz=frequency_spread_hz)
         lines.append(
             f"Offsets are known only modulo one period ({period_us:.1f} µs): "
             f"{_fmt_us(value, nu)} µs cannot be told from {_fmt_us(value, nu)} ± n·"

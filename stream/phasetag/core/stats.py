@@ -850,8 +850,8 @@ def trials_log_p(log_p: float, trials: float) -> float:
         raise ValueError(f"log_p must be <= 0, got {log_p!r}")
     if not (trials >= 1.0 and math.isfinite(trials)):
         raise ValueError(f"trials must be a finite number >= 1, got {trials!r}")
-    if trials == 1.0 or log_p == -math.inf:
-        return log_p
+    if trials == 1.0 or log_p == -math.inf or log_p == 0.0:
+        return log_p  # p = 1 stays 1 after any number of trials
     log_np = math.log(trials) + log_p
     if log_np < -40.0:
         # 1 − (1 − p)^n = n p (1 − (n − 1) p / 2 + …): the correction is below 1e-17

@@ -26,7 +26,7 @@ import re
 from dataclasses import dataclass, field
 from datetime import date
 from decimal import ROUND_FLOOR, Decimal, localcontext
-from enum import Enum
+from enum import StrEnum
 
 import numpy as np
 
@@ -55,12 +55,12 @@ NS_PER_DAY = 86_400 * NS_PER_S
 MJD_AT_EPOCH = Decimal("51544.5")  # 2000-01-01T12:00:00
 TT_MINUS_TAI_NS = 32_184_000_000  # exact, IAU 1991 Resolution A4
 TAI_MINUS_GPS_NS = 19_000_000_000  # exact, by definition of the GPS epoch
-UNIX_EPOCH_NS = -(10_957 * NS_PER_DAY + NS_PER_DAY // 2)  # 1970-01-01T00:00:00 as a label
+# 1970-01-01T00:00:00 as a label
+UNIX_EPOCH_NS = -(10_957 * NS_PER_DAY + NS_PER_DAY // 2)
 _ORDINAL_AT_MJD_ZERO = 678_576  # date(1858, 11, 17).toordinal()
-EARLIEST_UTC_NS = (41_317 - 51_544) * NS_PER_DAY - NS_PER_DAY // 2  # 1972-01-01, first leap table row
 
 
-class Scale(str, Enum):
+class Scale(StrEnum):
     """A named time scale."""
 
     UTC = "UTC"

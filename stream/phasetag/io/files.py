@@ -41,8 +41,13 @@ def validate(model: type[M], data: dict, source: str, error: type[InputError] = 
         for item in exc.errors():
             where = ".".join(str(part) for part in item["loc"]) or "(top level)"
             value = item.get("input")
-            shown = value if not isinstance(value, dict) else "{...}"
-            problems.append(f"{where} = {shown!r}: {item['msg']}")
+            if item["type"] == "missing":
+                problems.append(f"{where}: required field missing")
+            elif item["type"] == "extra_forbidden":
+                problems.append(f"{where} = {value!r}: unknown field")
+            else:
+                shown = value if not isinstance(value, dict) else "{...}"
+                problems.append(f"{where} = {shown!r}: {item['msg']}")
         first = exc.errors()[0]
         field = ".".join(str(p) for p in first["loc"]) or "(top level)"
         raise error(field, first.get("input"), first["msg"],

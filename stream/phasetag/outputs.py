@@ -1,0 +1,111 @@
+"""Pipeline results as Arrow tables in the schemas of ``io.schemas``.
+
+Numeric columns are wrapped without copies; repeated strings (source, target,
+model, reason) are dictionary-encoded from their indices.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pyarrow as pa
+
+from .core.batch import EventBatch
+from .core.pipeline import FeedResult
+from .io import schemas
+
+__all__ = ["archive_table", "rejects_table", "message_reject_table", "ledger_table",
+           "rows_table", "clock_table"]
+
+
+def _constant(value: str, n: int) -> pa.DictionaryArray:
+    return pa.DictionaryArray.from_arrays(pa.array(np.zeros(n, np.int32)), pa.array([value]))
+
+
+def archive_table(columns: dict, source: str, sequence: int, target: str,
+                  model_ids: list[str]) -> pa.Table:
+    """Archive rows of one target from ``FeedResult.archive[target]``."""
+    n = len(columns["event_id"])
+    arrays = {
+        "event_id": columns["event_id"],
+        "source": _constant(source, n),
+        "sequence": np.full(n, sequence, np.uint64),
+        "target": _constant(target, n),
+        "site_tt_ns": columns["site_tt_ns"],
+        "barycentric_tdb_ns": columns["barycentric_tdb_ns"],
+        "barycentric_correction_s": columns["barycentric_correction_s"],
+        "phase": columns["phase"],
+        "pulse_number": columns["pulse_number"],
+        "weight": columns["weight"],
+        "recipe_flags": columns["recipe_flags"],
+        "model_id": pa.DictionaryArray.from_arrays(pa.array(columns["model_index"]),
+                                                   pa.array(model_ids)),
+        "quality_flags": columns["quality_flags"],
+    }
+    return pa.Table.from_pydict(arrays, schema=schemas.ARCHIVE)
+
+
+def rejects_table(batch: EventBatch, result: FeedResult, received_utc_ns: int,
+                  message_bytes: int) -> pa.Table:
+    """One rejects row per refused event of a batch."""
+    rows = result.rejected_index
+    n = rows.size
+    reasons = pa.array(result.rejected_reason).dictionary_encode()
+    return pa.Table.from_pydict({
+        "received_utc_ns": np.full(n, received_utc_ns, np.int64),
+        "source": pa.array([batch.source] * n, pa.string()),
+        "sequence": pa.array(np.full(n, batch.sequence, np.uint64)),
+        "event_id": batch.event_id[rows],
+        "time_ns": batch.time_ns[rows],
+        "reason": reasons,
+        "detail": pa.array(result.rejected_detail, pa.string()),
+        "events": np.ones(n, np.int64),
+        "message_bytes": np.full(n, message_bytes, np.int64),
+    }, schema=schemas.REJECTS)
+
+
+def message_reject_table(received_utc_ns: int, source: str | None, sequence: int | None,
+                         reason: str, detail: str, events: int, message_bytes: int) -> pa.Table:
+    """A rejects row for a whole refused message (or a sequence gap, with events 0)."""
+    return pa.Table.from_pydict({
+        "received_utc_ns": [received_utc_ns], "source": [source], "sequence": [sequence],
+        "event_id": pa.nulls(1, pa.uint64()), "time_ns": pa.nulls(1, pa.int64()),
+        "reason": pa.array([reason]).dictionary_encode(), "detail": [detail],
+        "events": [events], "message_bytes": [message_bytes],
+    }, schema=schemas.REJECTS)
+
+
+def ledger_table(rows: list[dict]) -> pa.Table:
+    return rows_table(rows, schemas.LEDGER)
+
+
+def rows_table(rows: list[dict], schema: pa.Schema, **constant) -> pa.Table:
+    """Rows (dicts) as a table of ``schema``; ``constant`` columns are added to each."""
+    columns = {}
+    for field in schema:
+        values = [constant[field.name] if field.name in constant else row.get(field.name)
+                  for row in rows]
+        kind = field.type.value_type if pa.types.is_dictionary(field.type) else field.type
+        array = pa.array(values, kind)
+        columns[field.name] = array.dictionary_encode() if pa.types.is_dictionary(field.type) \
+            else array
+    return pa.Table.from_pydict(columns, schema=schema)
+
+
+def clock_table(results, computed_at_utc_ns: int) -> pa.Table:
+    """One row per (target, recipe, verdict, chunks) from ``Pipeline.clock_check()``."""
+    rows = []
+    for target, recipe, verdict, chunks in results:
+        rows.append({
+            "target": target, "recipe": recipe, "status": verdict.status,
+            "kind": verdict.kind, "summary": "\n".join(verdict.lines),
+            "tolerance_cycles": verdict.tolerance_cycles,
+            "verdict_json": json.dumps(verdict.to_dict()),
+            "chunk_start_tt_ns": [c.start_ns for c in chunks],
+            "chunk_end_tt_ns": [c.end_ns for c in chunks],
+            "chunk_shift_cycles": [c.shift_cycles for c in chunks],
+            "chunk_sigma_cycles": [c.sigma_cycles for c in chunks],
+            "chunk_detected": [bool(c.detected) for c in chunks],
+        })
+    return rows_table(rows, schemas.CLOCK, computed_at_utc_ns=computed_at_utc_ns)
