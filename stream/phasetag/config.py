@@ -222,6 +222,10 @@ class BarycentreConfig(BaseModel):
     hours_after: float = Field(default=36.0, gt=0)
     """Tables cover [now - before, now + after] at start and are extended ahead of
     need in the background, never on the hot path."""
+    cover_from: str | None = None
+    """UTC start of the table coverage instead of now - hours_before (for replays)."""
+    cover_until: str | None = None
+    """UTC end of the table coverage instead of now + hours_after."""
 
 
 class OutputConfig(BaseModel):

@@ -187,6 +187,7 @@ def test_changing_dictionaries_are_written_as_deltas(tmp_path):
 def test_schema_mismatch_names_the_field_and_writes_nothing(tmp_path):
     schema = OUTPUTS["ledger"]
     good = {"received_utc_ns": [1, 2], "source": ["builder-north"] * 2, "sequence": [5, 6],
+            "outcome": ["accepted"] * 2,
             "events": [10, 12], "tagged": [9, 12], "filtered": [1, 0], "rejected": [0, 0],
             "missing_before": [0, 0]}
     writer = RotatingArrowWriter(tmp_path, "ledger", schema)

@@ -291,20 +291,11 @@ class Pipeline:
         result = target.tagger.tag(tt_ns[index], None if extra is None else extra[index])
         quality = flags[index] | result.flags
         recipe_flags = np.zeros(index.size, np.uint32)
-        usable = (quality & Quality.OUTSIDE_MODEL_VALIDITY) == 0
-        weights = sub.weight
-        for bit, (recipe, moments) in enumerate(zip(target.recipes, self.moments[target.name],
-                                                    strict=True)):
-            chosen = recipe.select(sub, sub_distance)
-            recipe_flags[chosen] |= np.uint32(1 << bit)
-            chosen &= usable
-            if chosen.any():
-                w = weights[chosen] if (recipe.use_weights and weights is not None) else None
-                moments.update(tt_ns[index][chosen], result.phase[chosen], w)
-                if bit == target.clock_recipe:
-                    self.reservoirs[target.name].add(
-                        tt_ns[index][chosen], result.correction_s[chosen],
-                        np.ones(int(chosen.sum())) if w is None else w)
+        for bit, recipe in enumerate(target.recipes):
+            recipe_flags[recipe.select(sub, sub_distance)] |= np.uint32(1 << bit)
+        weights = np.ones(index.size) if sub.weight is None else sub.weight
+        self.accumulate(target.name, tt_ns[index], result.phase, weights, recipe_flags, quality,
+                        result.correction_s)
         return {
             "_rows": index,
             "event_id": sub.event_id,
@@ -313,12 +304,29 @@ class Pipeline:
             "barycentric_correction_s": result.correction_s,
             "phase": result.phase,
             "pulse_number": result.pulse_number,
-            "weight": (np.ones(index.size, np.float32) if weights is None
-                       else weights.astype(np.float32)),
+            "weight": np.ones(index.size) if weights is None else weights,
             "recipe_flags": recipe_flags,
             "model_index": result.model_index.astype(np.int32),  # into tagger.model_ids
             "quality_flags": quality,
         }
+
+    def accumulate(self, name: str, tt_ns, phase, weight, recipe_flags, quality, correction_s):
+        """Add tagged events to a target's statistics: each recipe takes the rows with
+        its bit set, except those tagged outside their model's validity. Used by
+        ``feed`` and to replay archive rows after a restart."""
+        target = self.targets[name]
+        usable = (quality & Quality.OUTSIDE_MODEL_VALIDITY) == 0
+        for bit, (recipe, moments) in enumerate(zip(target.recipes, self.moments[name],
+                                                    strict=True)):
+            chosen = usable & ((recipe_flags >> np.uint32(bit)) & 1).astype(bool)
+            if not chosen.any():
+                continue
+            w = weight[chosen] if recipe.use_weights else None
+            moments.update(tt_ns[chosen], phase[chosen], w)
+            if bit == target.clock_recipe:
+                self.reservoirs[name].add(tt_ns[chosen], correction_s[chosen],
+                                          weight[chosen] if recipe.use_weights
+                                          else np.ones(int(chosen.sum())))
 
     # -- statistics ---------------------------------------------------------------
     @property

@@ -52,7 +52,7 @@ ARCHIVE = pa.schema([
        "site_tt_ns + this", "s"),
     _f("phase", pa.float64(), "rotational phase in [0, 1)", "cycles"),
     _f("pulse_number", pa.int64(), "integer turns since the model's phase zero", "cycles"),
-    _f("weight", pa.float32(), "photon weight (1 when the stream has none)"),
+    _f("weight", pa.float64(), "photon weight (1 when the stream has none)"),
     _f("recipe_flags", pa.uint32(), "bit i set: the event passes the target's recipe i "
        "(order in the file metadata 'recipes')"),
     _f("model_id", _STRING, "spin model that tagged the event"),
@@ -145,9 +145,10 @@ REJECTS = pa.schema([
 
 LEDGER = pa.schema([
     _f("received_utc_ns", pa.int64(), "wall clock on receipt", "ns UTC label"),
-    _f("source", _STRING, "event builder"),
-    _f("sequence", pa.uint64(), "message sequence number"),
-    _f("events", pa.int64(), "events in the message"),
+    _f("source", _STRING, "event builder (null if the header was unreadable)", nullable=True),
+    _f("sequence", pa.uint64(), "message sequence number (null if unreadable)", nullable=True),
+    _f("outcome", _STRING, "'accepted', or the reason the whole message was refused"),
+    _f("events", pa.int64(), "events in the message (0 if unknown)"),
     _f("tagged", pa.int64(), "events written to the archive"),
     _f("filtered", pa.int64(), "valid events outside every target's selection"),
     _f("rejected", pa.int64(), "events refused (see rejects)"),

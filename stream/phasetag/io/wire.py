@@ -104,7 +104,7 @@ import math
 import re
 import struct
 import time
-from collections import OrderedDict
+from collections import OrderedDict, deque
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from enum import StrEnum
@@ -821,13 +821,19 @@ class EventPublisher:
         ZeroMQ's default is 1000.
     stamp_wall_clock : bool, default True
         Put the wall clock in each header's ``sent_utc_ns``.
+    keep_last : int, default 0
+        Keep this many sent messages for :meth:`resend_after`. A receiver that
+        crashes loses what ZeroMQ had queued for it; after its restart, ask it for
+        the last sequence it committed (``phasetag`` reports it per source in its
+        status) and resend the rest. The receiver refuses any duplicate.
     """
 
     def __init__(self, endpoint: str, source: str, *, time_scale: Scale | str = "UTC",
                  pattern: Literal["push", "pub"] = "push", topic: bytes = b"",
                  bind: bool = False, context: zmq.Context | None = None,
                  first_sequence: int = 0, send_timeout_ms: int | None = None,
-                 high_water_mark: int | None = None, stamp_wall_clock: bool = True):
+                 high_water_mark: int | None = None, stamp_wall_clock: bool = True,
+                 keep_last: int = 0):
         if pattern not in ("push", "pub"):
             raise InputError("pattern", pattern, "must be 'push' or 'pub'")
         if not isinstance(source, str) or not _SOURCE_RE.fullmatch(source):
@@ -844,6 +850,10 @@ class EventPublisher:
         self.topic = topic if pattern == "pub" else None
         self.stamp_wall_clock = stamp_wall_clock
         self._sequence = first_sequence
+        if not _is_int(keep_last) or keep_last < 0:
+            raise InputError("keep_last", keep_last, "must be an integer >= 0")
+        self._kept: deque[tuple[int, list]] = deque(maxlen=keep_last or None)
+        self._keep = keep_last > 0
         context = context if context is not None else zmq.Context.instance()
         self._socket = context.socket(zmq.PUSH if pattern == "push" else zmq.PUB)
         try:
@@ -907,8 +917,28 @@ class EventPublisher:
                                 topic=self.topic, sent_utc_ns=sent)
         self._socket.send_multipart(frames, copy=False)
         sequence = self._sequence
+        if self._keep:
+            self._kept.append((sequence, frames))
         self._sequence += 1
         return sequence
+
+    def resend_after(self, sequence: int | None) -> int:
+        """Send again the kept messages numbered above ``sequence`` (all kept ones
+        when None); returns how many. Raises ``InputError`` when some of them are no
+        longer kept (``keep_last`` too small for the outage)."""
+        if not self._keep:
+            raise InputError("keep_last", 0, "resending needs EventPublisher(keep_last=N)")
+        first_kept = self._kept[0][0] if self._kept else self._sequence
+        wanted = 0 if sequence is None else sequence + 1
+        if self._kept and wanted < first_kept:
+            raise InputError("sequence", sequence, f"messages {wanted}..{first_kept - 1} are "
+                             f"no longer kept (keep_last = {self._kept.maxlen})")
+        resent = 0
+        for number, frames in list(self._kept):
+            if number >= wanted:
+                self._socket.send_multipart(frames, copy=False)
+                resent += 1
+        return resent
 
     def close(self, linger_ms: int = 1000) -> None:
         """Close the socket, waiting up to ``linger_ms`` to deliver queued messages.
@@ -1027,6 +1057,10 @@ class SequenceTracker:
 
     def __contains__(self, source: object) -> bool:
         return source in self._sources
+
+    def highest(self) -> dict[str, int]:
+        """The highest sequence number accepted so far, per source."""
+        return {name: state.highest for name, state in self._sources.items()}
 
     def observe(self, source: str, sequence: int) -> SequenceStatus:
         """Record one message and classify its number.

@@ -1,0 +1,405 @@
+"""The live service on loopback with real sockets and real files."""
+
+import json
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pytest
+import zmq
+
+from phasetag.config import ServiceConfig
+from phasetag.core.simulate import NightPlan, simulate_night
+from phasetag.demo import data_file
+from phasetag.io import schemas
+from phasetag.io.sinks import read_stream, stream_files
+from phasetag.io.wire import encode_message
+from phasetag.service import Service
+
+NIGHT = ("2026-12-02T01:00:00", "2026-12-02T12:00:00")
+
+
+def config_text(out: Path, intake: str, extra: str = "") -> str:
+    return f"""
+[intake]
+endpoints = ["{intake}"]
+max_message_bytes = 2000000
+max_events_per_message = 50000
+
+[site]
+name = "Corvid Ridge"
+latitude_deg = 36.78
+longitude_deg = -104.23
+height_m = 2340.0
+
+[barycentre]
+cover_from = "{NIGHT[0]}"
+cover_until = "{NIGHT[1]}"
+
+[[targets]]
+name = "lantern"
+models = ["{out.parent / 'lantern.toml'}"]
+template = "{data_file('lantern-template.toml')}"
+region_radius_deg = 1.5
+
+  [[targets.recipes]]
+  name = "all"
+
+  [[targets.recipes]]
+  name = "hard"
+  energy_min = "1 TeV"
+  use_weights = true
+
+[statistics]
+windows_minutes = [1.0]
+update_every_s = 0.2
+
+[clock_check]
+chunk_seconds = 10.0
+every_s = 0.5
+
+[output]
+directory = "{out}"
+checkpoint_every_s = 0.2
+{extra}
+"""
+
+
+@pytest.fixture
+def world(tmp_path):
+    """Output folder, a copy of the model (edited by the reload test), free endpoints."""
+    shutil.copy(data_file("lantern.toml"), tmp_path / "lantern.toml")
+    context = zmq.Context()
+    probe = context.socket(zmq.PULL)
+    port = probe.bind_to_random_port("tcp://127.0.0.1")
+    probe.close(linger=0)
+    context.term()
+    return tmp_path / "out", f"tcp://127.0.0.1:{port}"
+
+
+def write_config(out: Path, intake: str, extra: str = "") -> Path:
+    path = out.parent / "service.toml"
+    path.write_text(config_text(out, intake, extra))
+    return path
+
+
+def load(path: Path) -> ServiceConfig:
+    from phasetag.config import load_config
+
+    return load_config(path)
+
+
+class Running:
+    """A Service on a thread (signals belong to the main thread: stop() instead)."""
+
+    def __init__(self, config: ServiceConfig):
+        self.service = Service(config)
+        self.thread = threading.Thread(target=self.service.run, daemon=True)
+
+    def __enter__(self):
+        self.thread.start()
+        status = Path(self.service.config.output.directory) / "status.json"
+        deadline = time.time() + 60
+        while not status.exists() and time.time() < deadline:
+            time.sleep(0.05)
+        return self.service
+
+    def __exit__(self, *exc):
+        self.service.stop()
+        self.thread.join(timeout=60)
+        assert not self.thread.is_alive()
+
+
+def night_batches(demo_env, lantern, night_start_tt, seconds=30, seed=5):
+    plan = NightPlan(start_tt_ns=night_start_tt, duration_s=seconds, pulsed_rate_hz=100,
+                     background_rate_hz=900, template=lantern.template, batch_seconds=2.0,
+                     seed=seed, source="kestrel-test")
+    return list(simulate_night(plan, lantern.tagger, lantern.position, demo_env.leaps))
+
+
+def push(endpoint: str, messages: list[list[bytes]]) -> None:
+    context = zmq.Context()
+    with context.socket(zmq.PUSH) as sock:
+        sock.setsockopt(zmq.LINGER, 5000)
+        sock.connect(endpoint)
+        for frames in messages:
+            sock.send_multipart(frames)
+    context.term()
+
+
+def frames_of(batch, sequence=None):
+    return encode_message(batch.source, batch.sequence if sequence is None else sequence,
+                          "UTC", batch.columns())
+
+
+def wait_for(predicate, timeout=30.0):
+    deadline = time.time() + timeout
+    while time.time() < deadline:
+        if predicate():
+            return True
+        time.sleep(0.05)
+    return False
+
+
+def status(out: Path) -> dict:
+    return json.loads((out / "status.json").read_text())
+
+
+def test_every_event_sent_is_accounted_for_in_the_files(world, demo_env, lantern,
+                                                        night_start_tt):
+    out, endpoint = world
+    batches = night_batches(demo_env, lantern, night_start_tt)
+    messages = [frames_of(b) for b in batches]
+    good = sum(len(b) for b in batches)
+    bad = batches[3].take(np.arange(20))
+    bad_times = bad.time_ns.copy()
+    bad_times[:5] = np.iinfo(np.int64).min  # null times
+    messages += [
+        [b"not json", b"\x00\x01"],                                    # malformed
+        [json.dumps({"format": "phasetag.events", "version": 99, "source": "x", "sequence": 0,
+                     "time_scale": "UTC", "events": 0}).encode(), b""],  # wrong version
+        frames_of(batches[1]),                    # duplicate (0 again would mean a restart)
+        encode_message("kestrel-test", len(batches) + 3, "UTC",         # a gap of 3, 5 bad
+                       {**bad.columns(), "time_ns": bad_times,
+                        "event_id": np.arange(10**9, 10**9 + 20, dtype=np.uint64)}),
+    ]
+    with Running(load(write_config(out, endpoint))):
+        push(endpoint, messages)
+        expected = good + len(batches[1]) + 20
+        assert wait_for(lambda: status(out)["counters"].get("events_received") == expected)
+    counters = status(out)["counters"]
+    assert status(out)["state"] == "stopped"
+    assert counters["messages_received"] == len(messages)
+    assert counters["messages_rejected"] == 3
+    assert counters["missing_messages"] == 3
+    assert counters["events_received"] == (counters["events_tagged"] + counters["events_filtered"]
+                                           + counters["events_rejected"])
+    archive = read_stream(out, "archive")
+    rejects = read_stream(out, "rejects")
+    ledger = read_stream(out, "ledger")
+    # the files alone account for every event
+    assert archive.num_rows == counters["events_tagged"]
+    assert ledger["events"].to_numpy().sum() == expected
+    assert sum(rejects["events"].to_pylist()) == counters["events_rejected"]
+    reasons = set(rejects["reason"].to_pylist())
+    assert {"malformed_message", "wrong_version", "duplicate_message", "sequence_gap",
+            "bad_time"} <= reasons
+    # every output follows its documented schema (field names and types)
+    for stem, schema in schemas.OUTPUTS.items():
+        files = stream_files(out, stem)
+        assert files, stem
+        for path in files:
+            table = pa.ipc.open_file(str(path)).read_all()  # closed files are complete
+            assert table.schema.remove_metadata().equals(schema.remove_metadata()), stem
+
+
+def test_statistics_in_the_files_match_the_archive(world, demo_env, lantern, night_start_tt):
+    out, endpoint = world
+    batches = night_batches(demo_env, lantern, night_start_tt, seconds=20)
+    with Running(load(write_config(out, endpoint))):
+        push(endpoint, [frames_of(b) for b in batches])
+        total = sum(len(b) for b in batches)
+        assert wait_for(lambda: status(out)["counters"].get("events_received") == total)
+    archive = read_stream(out, "archive")
+    significance = read_stream(out, "significance")
+    last = {(r["recipe"], r["window"]): r for r in significance.to_pylist()}
+    flags = archive["recipe_flags"].to_numpy()
+    assert last[("all", "cumulative")]["events"] == int(((flags & 1) == 1).sum())
+    assert last[("hard", "cumulative")]["events"] == int(((flags & 2) == 2).sum())
+    profiles = read_stream(out, "profiles").to_pylist()
+    final = [p for p in profiles if p["recipe"] == "all"][-1]
+    assert sum(final["counts"]) == pytest.approx(float(((flags & 1) == 1).sum()))
+    clock = read_stream(out, "clock").to_pylist()[-1]
+    assert clock["status"] in ("OK", "WARN", "FAIL") and clock["summary"]
+
+
+def test_kill_minus_nine_then_restart_loses_nothing_with_resend(world, demo_env, lantern,
+                                                                night_start_tt):
+    # A kill -9 loses what the service had not committed (at most the message it was
+    # processing, plus what ZeroMQ had queued in its memory). The recovery procedure:
+    # restart, read the last committed sequence per source, resend after it.
+    from phasetag.io.wire import EventPublisher
+
+    out, endpoint = world
+    port = int(endpoint.rsplit(":", 1)[1])
+    control = f"tcp://127.0.0.1:{port + 1}"
+    config = write_config(out, endpoint, f'\n[control]\nendpoint = "{control}"\n')
+    batches = night_batches(demo_env, lantern, night_start_tt, seconds=60, seed=9)
+    first, second = batches[:15], batches[15:]
+    environment = {**os.environ, "PYTHONUNBUFFERED": "1"}
+    command = [sys.executable, "-m", "phasetag", "run", str(config)]
+    context = zmq.Context()
+    publisher = EventPublisher(endpoint, "kestrel-test", context=context, keep_last=1000)
+
+    service = subprocess.Popen(command, env=environment, stderr=subprocess.DEVNULL)
+    assert wait_for(lambda: (out / "status.json").exists(), 60)
+    for batch in first:
+        publisher.send(**batch.columns())
+    assert wait_for(lambda: status(out)["counters"].get("messages_received", 0) >= 3)
+    service.send_signal(signal.SIGKILL)  # in the middle of the stream
+    service.wait(timeout=30)
+    for stem in schemas.OUTPUTS:  # the open files read up to their last complete batch
+        read_stream(out, stem)
+
+    service = subprocess.Popen(command, env=environment, stderr=subprocess.DEVNULL)
+    try:
+        assert wait_for(lambda: status(out)["state"] == "running", 60)
+        request = context.socket(zmq.REQ)
+        request.setsockopt(zmq.RCVTIMEO, 30000)
+        request.connect(control)
+        request.send(b"status")
+        resumed = json.loads(request.recv())
+        request.close(linger=0)
+        highest = resumed["sources"].get("kestrel-test", {}).get("highest_sequence")
+        counters = resumed["counters"]
+        assert counters["events_received"] == (counters["events_tagged"]
+                                               + counters["events_filtered"]
+                                               + counters["events_rejected"])
+        publisher.resend_after(highest)
+        for batch in second:
+            publisher.send(**batch.columns())
+        total = sum(len(b) for b in batches)
+        assert wait_for(lambda: status(out)["counters"]["events_received"]
+                        - _duplicate_events(out) >= total, 60)
+    finally:
+        service.send_signal(signal.SIGTERM)
+        assert service.wait(timeout=60) == 0
+        publisher.close(linger_ms=0)
+        context.term()
+    counters = status(out)["counters"]
+    assert counters["events_received"] == (counters["events_tagged"]
+                                           + counters["events_filtered"]
+                                           + counters["events_rejected"])
+    # nothing lost, nothing archived twice: duplicates (ZeroMQ's own redelivery after the
+    # restart overlapping the resend) are refused and counted
+    assert counters["events_received"] - _duplicate_events(out) == total
+    archive = read_stream(out, "archive")
+    assert archive.num_rows == counters["events_tagged"]
+    ids = archive["event_id"].to_numpy()
+    assert np.unique(ids).size == ids.size
+    # after SIGTERM every file is complete, with a footer
+    for stem in schemas.OUTPUTS:
+        for path in stream_files(out, stem):
+            pa.ipc.open_file(str(path)).read_all()
+    # statistics resumed: the final cumulative fold counts every archived 'all' event
+    significance = read_stream(out, "significance").to_pylist()
+    final = [r for r in significance if r["recipe"] == "all" and r["window"] == "cumulative"][-1]
+    assert final["events"] == int((archive["recipe_flags"].to_numpy() & 1).sum())
+
+
+def _duplicate_events(out: Path) -> int:
+    ledger = read_stream(out, "ledger")
+    outcome = np.array(ledger["outcome"].to_pylist())
+    return int(ledger["events"].to_numpy()[outcome == "duplicate_message"].sum())
+
+
+def test_models_reload_while_running_and_every_row_names_its_model(world, demo_env, lantern,
+                                                                   night_start_tt):
+    out, endpoint = world
+    control = endpoint.rsplit(":", 1)[0] + ":" + str(int(endpoint.rsplit(":", 1)[1]) + 1)
+    config = load(write_config(out, endpoint, f'\n[control]\nendpoint = "{control}"\n'))
+    batches = night_batches(demo_env, lantern, night_start_tt, seconds=20)
+    model = out.parent / "lantern.toml"
+    with Running(config):
+        push(endpoint, [frames_of(b) for b in batches[:5]])
+        assert wait_for(lambda: status(out)["counters"].get("messages_received") == 5)
+        model.write_text(model.read_text().replace('"lantern-2026a"', '"lantern-2026b"'))
+        context = zmq.Context()
+        with context.socket(zmq.REQ) as request:
+            request.setsockopt(zmq.RCVTIMEO, 20000)
+            request.connect(control)
+            request.send(b"reload")
+            reply = json.loads(request.recv())
+        context.term()
+        assert any("lantern-2026b" in change for change in reply["changes"])
+        push(endpoint, [frames_of(b) for b in batches[5:]])
+        assert wait_for(lambda: status(out)["counters"].get("messages_received")
+                        == len(batches))
+        model.write_text("frequency_hz = 'broken'")  # a bad file must not stop anything
+        assert wait_for(lambda: any("reload refused" in w for w in status(out)["warnings"]))
+    archive = read_stream(out, "archive")
+    models = archive["model_id"].to_pylist()
+    sequences = archive["sequence"].to_numpy()
+    assert set(models[: int((sequences < 5).sum())]) == {"lantern-2026a"}
+    assert set(np.array(models)[sequences >= 5]) == {"lantern-2026b"}
+
+
+def test_live_updates_are_published(world, demo_env, lantern, night_start_tt):
+    out, endpoint = world
+    port = int(endpoint.rsplit(":", 1)[1]) + 2
+    config = load(write_config(out, endpoint,
+                               f'publish_endpoint = "tcp://127.0.0.1:{port}"'))
+    batches = night_batches(demo_env, lantern, night_start_tt, seconds=10)
+    context = zmq.Context()
+    sub = context.socket(zmq.SUB)
+    sub.setsockopt(zmq.SUBSCRIBE, b"status")
+    sub.setsockopt(zmq.RCVTIMEO, 10000)
+    sub.connect(f"tcp://127.0.0.1:{port}")
+    try:
+        with Running(config):
+            push(endpoint, [frames_of(b) for b in batches])
+            total = sum(len(b) for b in batches)
+            message = None
+            deadline = time.time() + 30
+            while time.time() < deadline:
+                topic, body = sub.recv_multipart()
+                message = json.loads(body)
+                if message["counters"].get("events_received") == total:
+                    break
+            assert message["format"] == "phasetag.status"
+            assert message["counters"]["events_received"] == total
+            assert message["targets"][0]["recipes"][0]["profile"]["counts"]
+    finally:
+        sub.close(linger=0)
+        context.term()
+
+
+def test_curve_keys_authenticate_and_encrypt_the_intake(world, demo_env, lantern,
+                                                        night_start_tt):
+    import zmq.auth
+
+    out, endpoint = world
+    keys = out.parent / "keys"
+    allowed = out.parent / "allowed"
+    keys.mkdir()
+    allowed.mkdir()
+    server_public, server_secret = zmq.auth.create_certificates(keys, "server")
+    client_public, client_secret = zmq.auth.create_certificates(keys, "client")
+    _, stranger_secret = zmq.auth.create_certificates(keys, "stranger")
+    shutil.copy(client_public, allowed)
+    extra = (f'\n[intake.curve]\nserver_secret_key_file = "{server_secret}"\n'
+             f'authorized_clients_directory = "{allowed}"\n')
+    text = config_text(out, endpoint).replace("max_events_per_message = 50000",
+                                              "max_events_per_message = 50000" + extra)
+    path = out.parent / "service.toml"
+    path.write_text(text)
+    batches = night_batches(demo_env, lantern, night_start_tt, seconds=6)
+
+    def send(secret_file, batch_list):
+        context = zmq.Context()
+        public, secret = zmq.auth.load_certificate(str(secret_file))
+        server_key, _ = zmq.auth.load_certificate(str(server_public))
+        with context.socket(zmq.PUSH) as sock:
+            sock.curve_publickey, sock.curve_secretkey = public, secret
+            sock.curve_serverkey = server_key
+            sock.setsockopt(zmq.LINGER, 2000)
+            sock.connect(endpoint)
+            for b in batch_list:
+                sock.send_multipart(frames_of(b))
+        context.term()
+
+    with Running(load(path)):
+        send(out.parent / "keys" / "stranger.key_secret", batches[:1])
+        send(out.parent / "keys" / "client.key_secret", batches[1:])
+        expected = sum(len(b) for b in batches[1:])
+        assert wait_for(lambda: status(out)["counters"].get("events_received") == expected)
+        time.sleep(0.5)
+        assert status(out)["counters"]["events_received"] == expected  # stranger refused
+    del stranger_secret, client_secret, server_secret
