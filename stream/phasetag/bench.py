@@ -28,7 +28,13 @@ TARGETS = {
     "tagging_ratio_to_astropy": 500.0,
     "tagging_bytes_per_event": 100.0,
     "moments_events_per_s": 8e6,
+    "service_events_per_s": 1e6,
+    "service_update_latency_p99_s": 2.0,
+    "service_events_lost": 0,
+    "soak_rss_spread": 0.10,
 }
+LOWER_IS_BETTER = ("tagging_bytes_per_event", "service_update_latency_p99_s",
+                   "service_events_lost", "soak_rss_spread")
 
 
 def _best_of(repeats, function):
@@ -147,7 +153,7 @@ def run_benchmarks(quick: bool = False, service: bool = False, soak_s: float = 0
 def _met(name, value):
     if value is None:
         return None
-    return bool(value <= TARGETS[name]) if name.endswith("bytes_per_event") else \
+    return bool(value <= TARGETS[name]) if name in LOWER_IS_BETTER else \
         bool(value >= TARGETS[name])
 
 

@@ -238,6 +238,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--endpoint", help="the service's PUB endpoint")
     p.add_argument("--folder", help="tail this output folder instead")
     p.add_argument("--once", action="store_true", help="draw once and exit")
+    p.add_argument("--ascii", action="store_true", help="plain ASCII bars even on a terminal")
     p.set_defaults(func=cmd_watch)
 
     p = sub.add_parser("bench", help="benchmark the hot paths (not a test)")

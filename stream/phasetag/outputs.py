@@ -19,8 +19,21 @@ __all__ = ["archive_table", "rejects_table", "message_reject_table", "ledger_tab
            "rows_table", "clock_table"]
 
 
+_ZEROS = pa.array(np.zeros(1 << 16, np.int32))
+_DICTIONARIES: dict[str, pa.Array] = {}
+
+
 def _constant(value: str, n: int) -> pa.DictionaryArray:
-    return pa.DictionaryArray.from_arrays(pa.array(np.zeros(n, np.int32)), pa.array([value]))
+    """A column repeating one string (indices are slices of one zero array)."""
+    global _ZEROS
+    if n > len(_ZEROS):
+        _ZEROS = pa.array(np.zeros(n, np.int32))
+    dictionary = _DICTIONARIES.get(value)
+    if dictionary is None:
+        if len(_DICTIONARIES) > 1024:
+            _DICTIONARIES.clear()
+        dictionary = _DICTIONARIES[value] = pa.array([value])
+    return pa.DictionaryArray.from_arrays(_ZEROS.slice(0, n), dictionary)
 
 
 def archive_table(columns: dict, source: str, sequence: int, target: str,
@@ -77,7 +90,8 @@ def message_reject_table(received_utc_ns: int, source: str | None, sequence: int
 
 
 def ledger_table(rows: list[dict]) -> pa.Table:
-    return rows_table(rows, schemas.LEDGER)
+    """Ledger rows (one per message) in one call: this runs for every message."""
+    return pa.Table.from_batches([pa.RecordBatch.from_pylist(rows, schema=schemas.LEDGER)])
 
 
 def rows_table(rows: list[dict], schema: pa.Schema, **constant) -> pa.Table:

@@ -40,7 +40,14 @@ from .io import schemas
 from .io.files import load_template
 from .io.sinks import RotatingArrowWriter, atomic_write_json
 from .io.wire import SequenceKind, SequenceTracker, WireError, decode_message
-from .outputs import archive_table, clock_table, message_reject_table, rejects_table, rows_table
+from .outputs import (
+    archive_table,
+    clock_table,
+    ledger_table,
+    message_reject_table,
+    rejects_table,
+    rows_table,
+)
 
 __all__ = ["Service", "run_service"]
 
@@ -290,7 +297,7 @@ class Service:
                "outcome": outcome, "events": events, "tagged": tagged, "filtered": filtered,
                "rejected": rejected, "missing_before": missing, "first_tt_ns": first,
                "last_tt_ns": last}
-        self.writers["ledger"].write(rows_table([row], schemas.LEDGER))
+        self.writers["ledger"].write(ledger_table([row]))
         recovery.count_ledger_row(self.counters, row)
         self._rate.append((self.clock(), self.counters.get("events_received", 0)))
 

@@ -115,7 +115,7 @@ def check_values(batch: EventBatch, earliest_ns: int, latest_ns: int) -> np.ndar
         refuse(~np.isfinite(batch.score), 6)
     if batch.weight is not None:
         refuse(~(batch.weight >= 0) | ~np.isfinite(batch.weight), 7)
-    if n > 1:
+    if n > 1 and not np.all(batch.event_id[1:] > batch.event_id[:-1]):  # sorted: no repeats
         order = np.argsort(batch.event_id, kind="stable")
         same = batch.event_id[order][1:] == batch.event_id[order][:-1]
         repeated = np.zeros(n, bool)

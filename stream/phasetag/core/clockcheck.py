@@ -394,6 +394,7 @@ def chunk_offsets(
     interval_ns: int | None = None,
     target_sigma_cycles: float | None = None,
     harmonics: int | None = None,
+    cache: dict | None = None,
 ) -> list[ChunkOffset]:
     """Group consecutive time intervals into chunks and fit the template to each.
 
@@ -405,7 +406,8 @@ def chunk_offsets(
         Expected pulse shape.
     chunk_ns : int, optional
         Fixed chunk length, ns; chunk j holds the intervals starting in
-        [t₀ + j·chunk_ns, t₀ + (j+1)·chunk_ns), t₀ the first start. When None, chunks
+        [j·chunk_ns, (j+1)·chunk_ns) (multiples from the time origin, so that chunks
+        stay put as old intervals are dropped). When None, chunks
         grow until their H-test reaches ``min_signal`` (or their offset error reaches
         ``target_sigma_cycles``); a weaker remainder joins the last chunk.
     min_signal : float
@@ -417,6 +419,9 @@ def chunk_offsets(
         Also close a chunk once its fitted offset error is at most this (cycles).
     harmonics : int, optional
         Passed to :func:`fit_offset`.
+    cache : dict, optional
+        Fits of earlier calls, keyed by the chunk's extent and content; pass the same
+        dict each time and a chunk whose data did not change is not refitted.
 
     Returns
     -------
@@ -440,7 +445,7 @@ def chunk_offsets(
 
     groups: list[list[tuple[int, PhaseMoments]]] = []
     if chunk_ns is not None:
-        keys = (starts - starts[0]) // int(chunk_ns)
+        keys = starts // int(chunk_ns)
         for key in np.unique(keys):
             groups.append([items[i] for i in np.flatnonzero(keys == key)])
     else:
@@ -474,6 +479,11 @@ def chunk_offsets(
         offsets = np.array([s - first for s, _ in group], dtype=float) + 0.5 * interval_ns
         mid = first + int(round(float(weights @ offsets / weights.sum()))) if weights.sum() > 0 \
             else first + int(round(float(offsets.mean())))
+        key = (first, int(group[-1][0]), total.count, total.sum_w, total.sum_w2,
+               float(total.cos_sums[0]), id(template), harmonics)
+        if cache is not None and key in cache:
+            out.append(cache[key])
+            continue
         fit = fit_offset(total, template, harmonics)
         out.append(
             ChunkOffset(
@@ -489,6 +499,10 @@ def chunk_offsets(
                 detected=bool(fit.detected),
             )
         )
+        if cache is not None:
+            if len(cache) > 100_000:
+                cache.clear()
+            cache[key] = out[-1]
     return out
 
 

@@ -634,6 +634,11 @@ def _conform(data, schema: pa.Schema, stem: str) -> pa.RecordBatch:
     """Columns of ``data`` as a batch of exactly ``schema`` (see ``write``)."""
     if isinstance(data, pa.Table):
         data = data.combine_chunks()
+        batches = data.to_batches()
+        if len(batches) == 1 and batches[0].schema.equals(schema, check_metadata=False):
+            if all(c.null_count == 0 or f.nullable for c, f in zip(batches[0].columns, schema,
+                                                                   strict=True)):
+                return batches[0]  # already exactly the schema: nothing to convert
     if isinstance(data, (pa.RecordBatch, pa.Table)):
         names = data.schema.names
         columns = dict(zip(names, data.columns, strict=True))
