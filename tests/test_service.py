@@ -403,3 +403,32 @@ def test_curve_keys_authenticate_and_encrypt_the_intake(world, demo_env, lantern
         time.sleep(0.5)
         assert status(out)["counters"]["events_received"] == expected  # stranger refused
     del stranger_secret, client_secret, server_secret
+
+
+def test_live_view_draws_the_running_service(world, demo_env, lantern, night_start_tt):
+    # Issue acceptance: the live view driven against a running service on loopback,
+    # its rendered output read as a string (no terminal needed).
+    import io
+
+    from phasetag.watch import run_watch
+
+    out, endpoint = world
+    port = int(endpoint.rsplit(":", 1)[1]) + 3
+    config = load(write_config(out, endpoint, f'publish_endpoint = "tcp://127.0.0.1:{port}"'))
+    batches = night_batches(demo_env, lantern, night_start_tt, seconds=20)
+    total = sum(len(b) for b in batches)
+    with Running(config):
+        push(endpoint, [frames_of(b) for b in batches])
+        assert wait_for(lambda: status(out)["counters"].get("events_received") == total)
+        time.sleep(1.5)  # the next published status carries the final counts
+        screen = io.StringIO()
+        assert run_watch(endpoint=f"tcp://127.0.0.1:{port}", once=True, out=screen,
+                         color=False, timeout_s=20) == 0
+        folder_screen = io.StringIO()
+        assert run_watch(folder=str(out), once=True, out=folder_screen, color=False) == 0
+    text = screen.getvalue()
+    assert "lantern" in text and "hard" in text
+    assert f"{total:,}" in text  # the counters line
+    assert "\x1b[" not in text  # plain text when not a terminal
+    assert "clock" in text.lower()
+    assert "lantern" in folder_screen.getvalue()

@@ -89,7 +89,7 @@ def cmd_table(args) -> int:
     from .offline import default_target
 
     env = _site_and_env(args.site)
-    setup = build_target(default_target(args.model))
+    setup = build_target(default_target([args.model]))
     (start, stop), _ = to_tt(np.array([parse_instant(args.start), parse_instant(args.stop)]),
                              Scale.UTC, env.leaps)
     table = TableCache(Path(args.cache), env, BarycentreConfig()).table(

@@ -470,8 +470,32 @@ class Service:
                                   "max": latency[-1]} if latency else None),
             "tables": {n: [t.tagger.table.start_ns, t.tagger.table.stop_ns]
                        for n, t in self.pipeline.targets.items()},
-            "notes": self.notes[-20:], "warnings": self.warnings[-20:],
+            "notes": self.notes[-20:],
+            "warnings": self.warnings[-20:] + self._table_warnings(),
         }
+
+    def _table_warnings(self) -> list[str]:
+        """What the bundled tables say about the data's dates (stated, never fatal)."""
+        latest = max((m.latest_ns or 0 for ms in self.pipeline.moments.values() for m in ms),
+                     default=0)
+        if not latest:
+            return []
+        mjd = 51_544.5 + latest / NS_PER_DAY
+        out = []
+        orientation = self.env.orientation
+        if mjd > orientation.last_mjd:
+            out.append(f"Earth orientation table ends at MJD {orientation.last_mjd:.0f}: UT1 and "
+                       "polar motion held (barycentric times off by up to ~1.4 µs; events "
+                       "flagged EARTH_ORIENTATION_HELD). Point site.earth_orientation_file "
+                       "to a newer IERS finals2000A file.")
+        elif mjd >= orientation.predicted_from_mjd:
+            out.append(f"Earth orientation from IERS predictions since MJD "
+                       f"{orientation.predicted_from_mjd:.0f} (a few ns at most)")
+        if mjd > self.env.leaps.expires_mjd:
+            out.append(f"leap-second table expired at MJD {self.env.leaps.expires_mjd}: a leap "
+                       "second announced since would be missed (events flagged "
+                       "LEAP_TABLE_EXPIRED); update astropy-iers-data")
+        return out
 
     def _events_per_s(self) -> float:
         now = self.clock()
