@@ -17,13 +17,22 @@ import zmq
 
 from phasetag.config import ServiceConfig
 from phasetag.core.simulate import NightPlan, simulate_night
-from phasetag.demo import data_file
+from phasetag.demo import data_file, lantern_toml, site_toml
 from phasetag.io import schemas
 from phasetag.io.sinks import read_stream, stream_files
 from phasetag.io.wire import encode_message
 from phasetag.service import Service
 
 NIGHT = ("2026-12-02T01:00:00", "2026-12-02T12:00:00")
+RECIPES = """
+  [[targets.recipes]]
+  name = "all"
+
+  [[targets.recipes]]
+  name = "hard"
+  energy_min = "1 TeV"
+  use_weights = true
+"""
 
 
 def config_text(out: Path, intake: str, extra: str = "") -> str:
@@ -33,30 +42,12 @@ endpoints = ["{intake}"]
 max_message_bytes = 2000000
 max_events_per_message = 50000
 
-[site]
-name = "Corvid Ridge"
-latitude_deg = 36.78
-longitude_deg = -104.23
-height_m = 2340.0
-
+{site_toml()}
 [barycentre]
 cover_from = "{NIGHT[0]}"
 cover_until = "{NIGHT[1]}"
 
-[[targets]]
-name = "lantern"
-models = ["{out.parent / 'lantern.toml'}"]
-template = "{data_file('lantern-template.toml')}"
-region_radius_deg = 1.5
-
-  [[targets.recipes]]
-  name = "all"
-
-  [[targets.recipes]]
-  name = "hard"
-  energy_min = "1 TeV"
-  use_weights = true
-
+{lantern_toml(model=str(out.parent / "lantern.toml"), recipes=RECIPES)}
 [statistics]
 windows_minutes = [1.0]
 update_every_s = 0.2

@@ -68,7 +68,7 @@ def bench_tagging(sizes=(10**6, 10**7), astropy_events=2000, repeats=3) -> dict:
     from astropy.coordinates import EarthLocation, SkyCoord
     from astropy.time import Time
 
-    from .core.timebase import NS_PER_S, format_instant
+    from .core.timebase import NS_PER_DAY, NS_PER_S
     from .io.tables import default_kernel_path
 
     env, target, start = _night()
@@ -99,8 +99,11 @@ def bench_tagging(sizes=(10**6, 10**7), astropy_events=2000, repeats=3) -> dict:
     kernel = str(default_kernel_path())
     predictor = tagger.predictors[0]
 
-    def astropy_route():
-        t = Time([format_instant(x) for x in sample], scale="tt", location=location)
+    days, rest = np.divmod(sample, NS_PER_DAY)
+
+    def astropy_route():  # vectorised, from two-part Julian dates (no text parsing)
+        t = Time(2_451_545.0 + days, rest / NS_PER_DAY, format="jd", scale="tt",
+                 location=location)
         tdb = t.tdb + t.light_travel_time(sky, ephemeris=kernel)
         seconds = (tdb.jd1 - 2_451_545.0) * 86_400 + tdb.jd2 * 86_400
         whole = np.floor(seconds)

@@ -12,7 +12,7 @@ from importlib import resources
 
 from .config import SiteConfig
 
-__all__ = ["DEMO_SITE", "data_file"]
+__all__ = ["DEMO_SITE", "data_file", "site_toml", "lantern_toml"]
 
 DEMO_SITE = SiteConfig(name="Corvid Ridge", latitude_deg=36.78, longitude_deg=-104.23,
                        height_m=2340.0)
@@ -21,3 +21,17 @@ DEMO_SITE = SiteConfig(name="Corvid Ridge", latitude_deg=36.78, longitude_deg=-1
 def data_file(name: str) -> str:
     """Path of a file shipped in phasetag/data."""
     return str(resources.files("phasetag") / "data" / name)
+
+
+def site_toml(site=DEMO_SITE) -> str:
+    """The [site] table of a configuration file for ``site``."""
+    return (f'[site]\nname = "{site.name}"\nlatitude_deg = {site.latitude_deg}\n'
+            f"longitude_deg = {site.longitude_deg}\nheight_m = {site.height_m}\n")
+
+
+def lantern_toml(model: str | None = None, region_radius_deg: float = 1.5,
+                 recipes: str = "") -> str:
+    """A [[targets]] table for the invented pulsar Lantern, with its template."""
+    return (f'[[targets]]\nname = "lantern"\nmodels = ["{model or data_file("lantern.toml")}"]\n'
+            f'template = "{data_file("lantern-template.toml")}"\n'
+            f"region_radius_deg = {region_radius_deg}\n{recipes}")

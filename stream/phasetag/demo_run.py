@@ -20,9 +20,21 @@ import time
 from pathlib import Path
 from types import SimpleNamespace
 
-from .demo import DEMO_SITE, data_file
+from .demo import data_file, lantern_toml, site_toml
 
-__all__ = ["run_demo", "demo_config"]
+__all__ = ["run_demo", "demo_config", "HARD_RECIPES"]
+
+HARD_RECIPES = """
+  [[targets.recipes]]
+  name = "all"
+
+  [[targets.recipes]]
+  name = "hard"
+  energy_min = "1 TeV"
+  max_distance_deg = 0.3
+  min_score = 0.5
+  use_weights = true
+"""
 
 
 def _free_port() -> int:
@@ -33,34 +45,13 @@ def _free_port() -> int:
 
 def demo_config(out: Path, intake_port: int, publish_port: int) -> str:
     """The demo's service configuration (TOML)."""
-    site = DEMO_SITE
     return f"""# phasetag demo: invented site, array and pulsars (see phasetag/demo.py)
 [intake]
 endpoints = ["tcp://127.0.0.1:{intake_port}"]
 pattern = "pull"
 
-[site]
-name = "{site.name}"
-latitude_deg = {site.latitude_deg}
-longitude_deg = {site.longitude_deg}
-height_m = {site.height_m}
-
-[[targets]]
-name = "lantern"
-models = ["{data_file('lantern.toml')}"]
-template = "{data_file('lantern-template.toml')}"
-region_radius_deg = 1.5
-
-  [[targets.recipes]]
-  name = "all"
-
-  [[targets.recipes]]
-  name = "hard"
-  energy_min = "1 TeV"
-  max_distance_deg = 0.3
-  min_score = 0.5
-  use_weights = true
-
+{site_toml()}
+{lantern_toml(recipes=HARD_RECIPES)}
 [[targets]]
 name = "ember"
 models = ["{data_file('ember.toml')}"]

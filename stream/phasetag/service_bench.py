@@ -21,7 +21,7 @@ import numpy as np
 import zmq
 
 from .core.timebase import NS_PER_S, parse_instant, unix_to_ns
-from .demo import DEMO_SITE, data_file
+from .demo import lantern_toml, site_toml
 from .io.sinks import read_stream
 from .io.wire import encode_message
 
@@ -54,28 +54,16 @@ def _messages(total: int, source: str = "bench", rate: float = 1e6) -> list[list
 
 
 def _config(directory: Path, intake: int, control: int) -> Path:
-    site = DEMO_SITE
+    recipes = '[[targets.recipes]]\nname = "all"\n[[targets.recipes]]\nname = "weighted"\n' \
+        "use_weights = true\n"
     text = f"""
 [intake]
 endpoints = ["tcp://127.0.0.1:{intake}"]
-[site]
-name = "{site.name}"
-latitude_deg = {site.latitude_deg}
-longitude_deg = {site.longitude_deg}
-height_m = {site.height_m}
+{site_toml()}
 [barycentre]
 cover_from = "2026-12-02T00:00:00"
 cover_until = "2026-12-02T14:00:00"
-[[targets]]
-name = "lantern"
-models = ["{data_file('lantern.toml')}"]
-template = "{data_file('lantern-template.toml')}"
-region_radius_deg = 3.0
-  [[targets.recipes]]
-  name = "all"
-  [[targets.recipes]]
-  name = "weighted"
-  use_weights = true
+{lantern_toml(region_radius_deg=3.0, recipes=recipes)}
 [output]
 directory = "{directory / 'out'}"
 [control]
