@@ -75,3 +75,33 @@ def test_inspect_an_archive_file(tmp_path, capsys):
     summary = json.loads(capsys.readouterr().out)
     assert summary["rows"] == 5 and len(summary["first_rows"]) == 2
     assert "phase" in summary["columns"]
+
+
+def test_stack_and_template_commands(tmp_path, capsys, demo_env, lantern, night_start_tt):
+    from phasetag.core.pipeline import Pipeline, PipelineSettings
+    from phasetag.core.simulate import NightPlan, simulate_night
+    from phasetag.io import schemas
+    from phasetag.io.sinks import RotatingArrowWriter
+    from phasetag.outputs import rows_table
+    from phasetag.recovery import write_checkpoint
+
+    plan = NightPlan(start_tt_ns=night_start_tt, duration_s=30, pulsed_rate_hz=80,
+                     background_rate_hz=400, template=lantern.template, seed=4)
+    folders = []
+    for night in ("first", "second"):
+        pipeline = Pipeline(PipelineSettings(leaps=demo_env.leaps), [lantern])
+        for batch in simulate_night(plan, lantern.tagger, lantern.position, demo_env.leaps):
+            pipeline.feed(batch)
+        folder = tmp_path / night
+        folder.mkdir()
+        write_checkpoint(folder, {"pipeline": pipeline.to_state()})
+        with RotatingArrowWriter(folder, "profiles", schemas.PROFILES) as writer:
+            writer.write(rows_table(pipeline.profiles(), schemas.PROFILES, computed_at_utc_ns=0))
+        folders.append(str(folder))
+    assert main(["stack", *folders, "--out", str(tmp_path / "stacked.json")]) == 0
+    text = capsys.readouterr().out
+    assert "lantern: 2 run(s)" in text and "sigma" in text
+    assert json.loads((tmp_path / "stacked.json").read_text())["stacked_from"] == folders
+    out = tmp_path / "tonight.toml"
+    assert main(["template", folders[0], "--target", "lantern", "--out", str(out)]) == 0
+    assert "binned_profile" in out.read_text()

@@ -7,6 +7,7 @@ field and value (exit status 2); our own bugs keep their traceback.
 from __future__ import annotations
 
 import argparse
+import json
 import logging
 import sys
 from pathlib import Path
@@ -99,6 +100,53 @@ def cmd_table(args) -> int:
           f"degree {table.degree}; cached in {args.cache}")
     for key, value in table.provenance.items():
         print(f"  {key}: {value}")
+    return 0
+
+
+def cmd_stack(args) -> int:
+    from .core import stats
+    from .core.pipeline import stack_states
+    from .recovery import read_checkpoint
+
+    states, labels = [], []
+    for folder in args.folders:
+        checkpoint = read_checkpoint(Path(folder))
+        if checkpoint is None:
+            raise InputError("folder", folder, "has no readable checkpoint.json")
+        states.append(checkpoint["pipeline"])
+        labels.append(str(folder))
+    merged = stack_states(states, labels)
+    for name, target in merged["targets"].items():
+        print(f"{name}: {len(target['runs'])} run(s), phase reference {target['phase_reference']}")
+        for recipe, state in zip(target["recipes"], target["moments"], strict=True):
+            moments = stats.TimeBinnedMoments.from_state(state).total()
+            h = stats.h_test(moments)
+            print(f"  {recipe:12s} {moments.count:>12,} events  H = {h.statistic:10.1f} "
+                  f"({h.harmonics} harmonics)  {h.sigma:6.2f} sigma")
+    if args.out:
+        Path(args.out).write_text(json.dumps(merged))
+        print(f"stacked state written to {args.out}")
+    return 0
+
+
+def cmd_template(args) -> int:
+    from .io.sinks import read_stream
+
+    rows = [r for r in read_stream(Path(args.output_dir), "profiles").to_pylist()
+            if r["target"] == args.target and r["recipe"] == args.recipe]
+    if not rows:
+        raise InputError("target/recipe", f"{args.target}/{args.recipe}",
+                         f"no profiles rows in {args.output_dir}")
+    counts = rows[-1]["counts"]
+    lines = [f"# binned template from {args.output_dir}, target {args.target}, recipe "
+             f"{args.recipe}, {rows[-1]['events']} events",
+             f'name = "{args.name or args.target}"',
+             "binned_profile = [" + ", ".join(f"{c:.6g}" for c in counts) + "]"]
+    Path(args.out).write_text("\n".join(lines) + "\n")
+    from .io.files import load_template
+
+    load_template(args.out)  # what we wrote must load
+    print(f"template with {len(counts)} bins written to {args.out}")
     return 0
 
 
@@ -240,6 +288,19 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--once", action="store_true", help="draw once and exit")
     p.add_argument("--ascii", action="store_true", help="plain ASCII bars even on a terminal")
     p.set_defaults(func=cmd_watch)
+
+    p = sub.add_parser("stack", help="stack the statistics of several nights' output folders")
+    p.add_argument("folders", nargs="+", help="output folders (their checkpoint.json)")
+    p.add_argument("--out", help="write the stacked state (JSON)")
+    p.set_defaults(func=cmd_stack)
+
+    p = sub.add_parser("template", help="make a binned template from a night's profile")
+    p.add_argument("output_dir")
+    p.add_argument("--target", required=True)
+    p.add_argument("--recipe", default="all")
+    p.add_argument("--name", help="template name (default: the target)")
+    p.add_argument("--out", required=True, help="template file to write (.toml)")
+    p.set_defaults(func=cmd_template)
 
     p = sub.add_parser("bench", help="benchmark the hot paths (not a test)")
     p.add_argument("--json", action="store_true", help="machine-readable output")

@@ -162,3 +162,37 @@ def test_trials_and_post_trials_significance(demo_env, lantern, night_start_tt):
     expected = stats.sigma_from_log_p(stats.trials_log_p(row["h_log10_p"] * np.log(10), 2))
     assert row["h_sigma_post_trials"] == pytest.approx(expected)
     assert row["h_sigma_post_trials"] < row["h_sigma"]
+
+
+def test_stacking_nights_equals_one_pass_and_refuses_other_phase_references(
+        demo_env, lantern, night_start_tt):
+    import copy
+    import json
+
+    from phasetag.core.pipeline import stack_states
+    from phasetag.errors import InputError
+
+    first, second = make_pipeline(demo_env, lantern), make_pipeline(demo_env, copy.deepcopy(lantern))
+    both = make_pipeline(demo_env, copy.deepcopy(lantern))
+    nights = [night(demo_env, lantern, night_start_tt, seconds=40, seed=s) for s in (1, 2)]
+    day = 3 * 3600 * NS_PER_S  # the second "night" three hours later (inside the table)
+    for batch in nights[0]:
+        first.feed(batch)
+        both.feed(batch)
+    for batch in nights[1]:
+        shifted = batch.take(slice(None))
+        object.__setattr__(shifted, "time_ns", batch.time_ns + day)
+        second.feed(shifted)
+        both.feed(shifted)
+    states = [json.loads(json.dumps(p.to_state())) for p in (first, second)]
+    stacked = make_pipeline(demo_env, copy.deepcopy(lantern))
+    assert stacked.restore(stack_states(states)) == []
+    one = {(r["recipe"], r["window"]): r for r in both.significance()}
+    for row in stacked.significance():
+        if row["window"] == "cumulative":
+            reference = one[(row["recipe"], "cumulative")]
+            assert row["events"] == reference["events"]
+            assert row["h_statistic"] == pytest.approx(reference["h_statistic"], rel=1e-9)
+    states[1]["targets"]["lantern"]["phase_reference"] = "0123456789abcdef0123"
+    with pytest.raises(InputError, match="phase_reference.*cannot be added"):
+        stack_states(states, ["night 1", "night 2"])

@@ -25,7 +25,7 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 
-from ..errors import RejectReason
+from ..errors import InputError, RejectReason
 from . import clockcheck, profile, stats
 from .barycentre import SkyPosition
 from .batch import VALUE_CHECKS, EventBatch, check_values
@@ -34,7 +34,7 @@ from .tagger import TargetTagger
 from .template import PulseTemplate, fit_offset
 from .timebase import NS_PER_S, ClockCorrection, LeapSecondTable, to_tt
 
-__all__ = ["Recipe", "TargetSetup", "PipelineSettings", "FeedResult", "Pipeline"]
+__all__ = ["Recipe", "TargetSetup", "PipelineSettings", "FeedResult", "Pipeline", "stack_states"]
 
 
 @dataclass(frozen=True)
@@ -545,6 +545,46 @@ class Pipeline:
             self.moments[name] = [stats.TimeBinnedMoments.from_state(m)
                                   for m in saved["moments"]]
         return notes
+
+
+def stack_states(states: list[dict], labels: list[str] | None = None) -> dict:
+    """Stack the statistics of several runs (nights) saved by ``Pipeline.to_state``.
+
+    Moments add, so the stacked significance is that of all the events folded
+    together. Only runs whose spin models share the phase reference may stack:
+    otherwise the same phase would not mean the same rotation, and the stack is
+    refused with the reason. Targets present in only some runs are stacked over
+    those. Counters add too.
+    """
+    labels = labels or [f"run {i + 1}" for i in range(len(states))]
+    if not states:
+        raise InputError("states", [], "nothing to stack")
+    merged: dict = {"version": 1, "counters": {}, "targets": {}, "stacked_from": labels}
+    for label, state in zip(labels, states, strict=True):
+        if state.get("version") != 1:
+            raise InputError(f"{label}.version", state.get("version"), "expected 1")
+        for key, value in state.get("counters", {}).items():
+            if isinstance(value, int):
+                merged["counters"][key] = merged["counters"].get(key, 0) + value
+        for name, target in state["targets"].items():
+            into = merged["targets"].get(name)
+            if into is None:
+                merged["targets"][name] = {**target, "runs": [label]}
+                continue
+            if target["phase_reference"] != into["phase_reference"]:
+                raise InputError(
+                    f"{label}.targets.{name}.phase_reference", target["phase_reference"],
+                    f"differs from {into['phase_reference']!r} of {', '.join(into['runs'])}: "
+                    "the spin models define phase differently (frequency, epoch, phase zero, "
+                    "glitches, orbit or position), so their folds cannot be added")
+            if target["recipes"] != into["recipes"]:
+                raise InputError(f"{label}.targets.{name}.recipes", target["recipes"],
+                                 f"differ from {into['recipes']} of {', '.join(into['runs'])}")
+            into["moments"] = [
+                (stats.TimeBinnedMoments.from_state(a) + stats.TimeBinnedMoments.from_state(b))
+                .to_state() for a, b in zip(into["moments"], target["moments"], strict=True)]
+            into["runs"].append(label)
+    return merged
 
 
 def _phase_reference(tagger: TargetTagger) -> str:
