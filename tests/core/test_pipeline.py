@@ -172,7 +172,8 @@ def test_stacking_nights_equals_one_pass_and_refuses_other_phase_references(
     from phasetag.core.pipeline import stack_states
     from phasetag.errors import InputError
 
-    first, second = make_pipeline(demo_env, lantern), make_pipeline(demo_env, copy.deepcopy(lantern))
+    first = make_pipeline(demo_env, lantern)
+    second = make_pipeline(demo_env, copy.deepcopy(lantern))
     both = make_pipeline(demo_env, copy.deepcopy(lantern))
     nights = [night(demo_env, lantern, night_start_tt, seconds=40, seed=s) for s in (1, 2)]
     day = 3 * 3600 * NS_PER_S  # the second "night" three hours later (inside the table)
