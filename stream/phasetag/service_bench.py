@@ -223,9 +223,15 @@ def _soak(service: _Service, seconds: float, rate: float = 100_000.0) -> dict:
         time.sleep(5.0)
         samples.append((time.time() - began, service.rss_bytes()))
     sender.join()
-    settled = [rss for t, rss in samples if t >= min(60.0, seconds / 4)] or [s[1] for s in samples]
-    low, high = min(settled), max(settled)
+    warm = min(60.0, seconds / 4)
+    settled = np.array([rss for t, rss in samples if t >= warm] or [s[1] for s in samples],
+                       dtype=float)
+    low, median, high = np.percentile(settled, [5, 50, 95])
+    first = np.median(settled[: max(1, len(settled) // 10)])
+    last = np.median(settled[-max(1, len(settled) // 10):])
     return {"soak_seconds": seconds, "soak_events_per_s": rate,
-            "soak_rss_min_mb": low / 2**20, "soak_rss_max_mb": high / 2**20,
-            "soak_rss_spread": (high - low) / low if low else None,
+            "soak_rss_median_mb": median / 2**20, "soak_rss_max_mb": settled.max() / 2**20,
+            # flatness: 5th to 95th percentile of the samples after warm-up, over the median
+            "soak_rss_spread": (high - low) / median,
+            "soak_rss_growth": (last - first) / first,
             "soak_rss_samples_mb": [round(r / 2**20, 1) for _, r in samples]}

@@ -30,7 +30,7 @@ from . import clockcheck, profile, stats
 from .barycentre import SkyPosition
 from .batch import VALUE_CHECKS, EventBatch, check_values
 from .flags import Quality
-from .tagger import TargetTagger
+from .tagger import CHUNK, TargetTagger
 from .template import PulseTemplate, fit_offset
 from .timebase import NS_PER_S, ClockCorrection, LeapSecondTable, to_tt
 
@@ -505,11 +505,14 @@ class Pipeline:
         scores = {}
         for kind, (_, change) in {"nominal": ("", lambda c: c), **self.REFOLDS}.items():
             moments = stats.PhaseMoments(self.settings.harmonics, self.settings.bins)
-            index = target.tagger.choose_models(tt)
-            for i in np.unique(index):
-                rows = index == i
-                phase = target.tagger.predictors[i].phase(tt[rows], change(correction[rows]))[1]
-                moments.update(phase, weight[rows] if weighted else None)
+            for lo in range(0, tt.size, CHUNK):  # chunks: no large temporaries
+                part = slice(lo, lo + CHUNK)
+                index = target.tagger.choose_models(tt[part])
+                for i in np.unique(index):
+                    rows = index == i
+                    phase = target.tagger.predictors[i].phase(
+                        tt[part][rows], change(correction[part][rows]))[1]
+                    moments.update(phase, weight[part][rows] if weighted else None)
             scores[kind] = stats.h_test(moments)
         return scores
 
