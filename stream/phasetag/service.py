@@ -21,7 +21,7 @@ import logging
 import signal
 import threading
 import time
-from collections import deque
+from collections import OrderedDict, deque
 from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 
@@ -58,6 +58,7 @@ POLL_MS = 100
 RELOAD_CHECK_S = 2.0
 STATUS_EVERY_S = 1.0
 HARD_MESSAGE_LIMIT = 4  # ZeroMQ drops messages above this many max_message_bytes
+MAX_SOURCES = 10_000  # per-source counters kept, like the sequence tracker's limit
 
 
 class Service:
@@ -71,10 +72,10 @@ class Service:
         self._stop = threading.Event()
         self.counters: dict[str, int] = {}
         self.rejected_by_reason: dict[str, int] = {}
-        self.sources: dict[str, dict] = {}
-        self.warnings: list[str] = []
-        self.notes: list[str] = []
-        self._rate = deque(maxlen=64)  # (wall time, events received)
+        self.sources: OrderedDict[str, dict] = OrderedDict()  # bounded: MAX_SOURCES
+        self.warnings: deque[str] = deque(maxlen=100)
+        self.notes: deque[str] = deque(maxlen=100)
+        self._rate = deque(maxlen=4096)  # (wall time, events received): > 10 s of messages
         self._latencies = deque(maxlen=10_000)
         self._pending_since: float | None = None
         self._due: dict[str, float] = {}
@@ -131,7 +132,7 @@ class Service:
         self.pipeline = Pipeline(settings, targets)
         self.tracker, notes = recovery.resume(self.out, self.pipeline, SequenceTracker(),
                                               self.counters)
-        self.notes += notes
+        self.notes.extend(notes)
         for note in notes:
             log.warning("%s", note)
         self.writers = {
@@ -253,8 +254,12 @@ class Service:
             return
         batch = message.batch
         status = self.tracker.observe(batch.source, batch.sequence)
-        source = self.sources.setdefault(batch.source, {"messages": 0, "events": 0,
-                                                        "last_sequence": None, "missing": 0})
+        source = self.sources.get(batch.source)
+        if source is None:
+            if len(self.sources) >= MAX_SOURCES:  # as the sequence tracker: forget the oldest
+                self.sources.popitem(last=False)
+            source = self.sources[batch.source] = {"messages": 0, "events": 0,
+                                                   "last_sequence": None, "missing": 0}
         source["messages"] += 1
         source["events"] += len(batch)
         if status.kind == SequenceKind.DUPLICATE:
@@ -470,8 +475,8 @@ class Service:
                                   "max": latency[-1]} if latency else None),
             "tables": {n: [t.tagger.table.start_ns, t.tagger.table.stop_ns]
                        for n, t in self.pipeline.targets.items()},
-            "notes": self.notes[-20:],
-            "warnings": self.warnings[-20:] + self._table_warnings(),
+            "notes": list(self.notes)[-20:],
+            "warnings": list(self.warnings)[-20:] + self._table_warnings(),
         }
 
     def _table_warnings(self) -> list[str]:

@@ -54,23 +54,27 @@ class Recipe:
         of each event's angular distance from the target. A cut on a column the
         stream does not carry selects nothing."""
         keep = np.ones(len(batch), bool)
-
-        def need(column):
-            nonlocal keep
-            if column is None:
-                keep[:] = False
-            return column
-
-        if self.energy_min_kev is not None and need(batch.energy_kev) is not None:
-            keep &= batch.energy_kev >= self.energy_min_kev
-        if self.energy_max_kev is not None and need(batch.energy_kev) is not None:
-            keep &= batch.energy_kev < self.energy_max_kev
-        if self.max_distance_deg is not None and need(cos_distance) is not None:
+        nothing = np.zeros(len(batch), bool)
+        energy, score, telescopes = batch.energy_kev, batch.score, batch.telescope_mask
+        if self.energy_min_kev is not None or self.energy_max_kev is not None:
+            if energy is None:
+                return nothing
+            if self.energy_min_kev is not None:
+                keep &= energy >= self.energy_min_kev
+            if self.energy_max_kev is not None:
+                keep &= energy < self.energy_max_kev
+        if self.max_distance_deg is not None:
+            if cos_distance is None:
+                return nothing
             keep &= cos_distance >= np.cos(np.radians(self.max_distance_deg))
-        if self.min_score is not None and need(batch.score) is not None:
-            keep &= batch.score >= self.min_score
-        if self.telescopes_any is not None and need(batch.telescope_mask) is not None:
-            keep &= (batch.telescope_mask & np.uint64(self.telescopes_any)) != 0
+        if self.min_score is not None:
+            if score is None:
+                return nothing
+            keep &= score >= self.min_score
+        if self.telescopes_any is not None:
+            if telescopes is None:
+                return nothing
+            keep &= (telescopes & np.uint64(self.telescopes_any)) != 0
         return keep
 
 
