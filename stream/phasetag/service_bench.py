@@ -194,12 +194,17 @@ def bench_service(quick: bool = False, soak_s: float = 0.0) -> dict:
                 "service_update_latency_p99_s": (status.get("update_latency_s") or {}).get("p99"),
                 "service_rss_after_burst_mb": service.rss_bytes() / 2**20,
             })
-            if soak_s:
-                results.update(_soak(service, soak_s))
         finally:
             service.stop()
         archive = sum(f.stat().st_size for f in Path(tmp, "out").glob("archive-*.arrow"))
         results["service_archive_bytes_per_event"] = archive / total
+    if soak_s:  # a fresh service: the burst's freed buffers would blur the picture
+        with tempfile.TemporaryDirectory(prefix="phasetag-soak-") as tmp:
+            service = _Service(Path(tmp))
+            try:
+                results.update(_soak(service, soak_s))
+            finally:
+                service.stop()
     return results
 
 
