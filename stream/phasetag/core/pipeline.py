@@ -287,20 +287,19 @@ class Pipeline:
         return result
 
     def _tag_target(self, target, batch, valid, tt_ns, extra, flags):
-        directions = batch.ra_deg is not None and batch.dec_deg is not None
-        distance = None
-        if directions:
-            distance = np.full(len(batch), -2.0)  # cosine: below any cut
-            distance[valid] = cos_angular_distance(batch.ra_deg[valid], batch.dec_deg[valid],
-                                                   target.position)
+        cos_distance = None
+        if batch.ra_deg is not None and batch.dec_deg is not None:
+            cos_distance = np.full(len(batch), -2.0)  # below any cut
+            cos_distance[valid] = cos_angular_distance(batch.ra_deg[valid], batch.dec_deg[valid],
+                                                       target.position)
         rows = valid.copy()
-        if target.region_radius_deg is not None and distance is not None:
-            rows &= distance >= np.cos(np.radians(target.region_radius_deg))
+        if target.region_radius_deg is not None and cos_distance is not None:
+            rows &= cos_distance >= np.cos(np.radians(target.region_radius_deg))
         index = np.flatnonzero(rows)
         if index.size == 0:
             return None
         sub = batch if index.size == len(batch) else batch.take(index)
-        sub_distance = None if distance is None else distance[index]
+        sub_distance = None if cos_distance is None else cos_distance[index]
         result = target.tagger.tag(tt_ns[index], None if extra is None else extra[index])
         quality = flags[index] | result.flags
         recipe_flags = np.zeros(index.size, np.uint32)
@@ -317,7 +316,7 @@ class Pipeline:
             "barycentric_correction_s": result.correction_s,
             "phase": result.phase,
             "pulse_number": result.pulse_number,
-            "weight": np.ones(index.size) if weights is None else weights,
+            "weight": weights,
             "recipe_flags": recipe_flags,
             "model_index": result.model_index.astype(np.int32),  # into tagger.model_ids
             "quality_flags": quality,
