@@ -16,6 +16,7 @@ refused) after its archive and rejects rows; see ``recovery`` for why this makes
 
 from __future__ import annotations
 
+import gc
 import json
 import logging
 import signal
@@ -59,6 +60,7 @@ RELOAD_CHECK_S = 2.0
 STATUS_EVERY_S = 1.0
 HARD_MESSAGE_LIMIT = 4  # ZeroMQ drops messages above this many max_message_bytes
 MAX_SOURCES = 10_000  # per-source counters kept, like the sequence tracker's limit
+COLLECT_EVERY_S = 60.0  # full garbage collection: keeps resident memory flat over a night
 
 
 class Service:
@@ -328,6 +330,8 @@ class Service:
         if self._every("reload", RELOAD_CHECK_S, now):
             self._reload_changed()
             self._extend_tables()
+        if self._every("collect", COLLECT_EVERY_S, now):
+            gc.collect()  # small per-message cycles otherwise wait for a rare full collection
 
     def _updates(self, now: float) -> None:
         computed = unix_to_ns(now)
