@@ -278,3 +278,16 @@ def test_table_says_what_happens_outside_its_coverage(calculator, leaps):
     again = CorrectionTable.from_columns(**table.to_columns(), provenance=table.provenance)
     np.testing.assert_array_equal(again.coefficients, table.coefficients)
     assert again.start_ns == table.start_ns and again.segment_ns == table.segment_ns
+
+
+def test_missing_kernel_falls_back_loudly_with_the_stated_accuracy(monkeypatch, tmp_path):
+    # Foundation issue: without the JPL package, erfa's built-in ephemeris only with a
+    # loud warning and the stated accuracy; events carry the BUILTIN_EPHEMERIS flag.
+    from phasetag.io import tables
+
+    monkeypatch.setattr(tables, "default_kernel_path", lambda: tmp_path / "absent.bsp")
+    with pytest.warns(RuntimeWarning, match=r"falling back.*15 µs rms \(45 µs max\)"):
+        ephemeris = tables.open_ephemeris()
+    assert ephemeris.flags & Quality.BUILTIN_EPHEMERIS
+    with pytest.raises(FileNotFoundError, match="absent.bsp"):
+        tables.open_ephemeris(tmp_path / "absent.bsp")  # a path the site named must exist
