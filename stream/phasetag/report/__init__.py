@@ -222,37 +222,32 @@ def build_report(output_dir: Path, report_dir: Path | None = None, *,
             if profiles:
                 fig = draw_profile(Figure, target, profiles)
                 notes = [p["template_note"] for p in profiles.values() if p["template_note"]]
-                target_figures.append({
-                    "png": png_bytes(fig), "file": f"{stem}-profile.png",
-                    "alt": f"{target} pulse profiles",
-                    "caption": f"{target}: pulse profile over two cycles per recipe, with "
-                               "errors sqrt(sum of squared weights), the harmonic estimate "
-                               "and the background level. " + ("Overlay: " + notes[0] + "."
-                                                               if notes else "")})
+                target_figures.append(_figure(
+                    fig, f"{stem}-profile.png", f"{target} pulse profiles",
+                    f"{target}: pulse profile over two cycles per recipe, with "
+                    "errors sqrt(sum of squared weights), the harmonic estimate "
+                    "and the background level. " + ("Overlay: " + notes[0] + "."
+                                                    if notes else "")))
             if grams:
                 fig = draw_phaseogram(Figure, target, grams, hours)
-                target_figures.append({
-                    "png": png_bytes(fig), "file": f"{stem}-phaseogram.png",
-                    "alt": f"{target} phaseogram",
-                    "caption": f"{target}: phase against time from the archive rows "
-                               "(weights as in each recipe's statistics; events outside the "
-                               "spin model's validity left out)."})
+                target_figures.append(_figure(
+                    fig, f"{stem}-phaseogram.png", f"{target} phaseogram",
+                    f"{target}: phase against time from the archive rows (weights as in "
+                    "each recipe's statistics; events outside the spin model's validity "
+                    "left out)."))
             if curves and hours is not None:
                 fig = draw_significance(Figure, target, curves, hours)
-                target_figures.append({
-                    "png": png_bytes(fig), "file": f"{stem}-significance.png",
-                    "alt": f"{target} significance against time",
-                    "caption": f"{target}: H-test significance per window; dotted: after the "
-                               "trials correction; dashed: σ ∝ √t fitted to the cumulative "
-                               "curve (a steady pulsar's significance grows as the square "
-                               "root of exposure)."})
+                target_figures.append(_figure(
+                    fig, f"{stem}-significance.png", f"{target} significance against time",
+                    f"{target}: H-test significance per window; dotted: after the trials "
+                    "correction; dashed: σ ∝ √t fitted to the cumulative curve (a steady "
+                    "pulsar's significance grows as the square root of exposure)."))
             clock_figure = None
             if clock is not None and clock["chunk_mid_tt_ns"].size and hours is not None:
                 fig = draw_clock(Figure, target, clock, hours)
-                clock_figure = {"png": png_bytes(fig), "file": f"{stem}-clock.png",
-                                "alt": f"{target} clock-chain check",
-                                "caption": f"{target}: template offset per chunk with 1σ "
-                                           "errors and the tolerance band."}
+                clock_figure = _figure(fig, f"{stem}-clock.png", f"{target} clock-chain check",
+                                       f"{target}: template offset per chunk with 1σ errors "
+                                       "and the tolerance band.")
                 target_figures.append(clock_figure)
             figures.extend(target_figures)
             data["targets"][target] = {
@@ -303,6 +298,11 @@ def build_report(output_dir: Path, report_dir: Path | None = None, *,
     index = report_dir / "index.html"
     sinks.atomic_write_text(index, page)
     return index
+
+
+def _figure(fig, file: str, alt: str, caption: str) -> dict:
+    """One figure of the page: PNG bytes, file name, alternative text, caption."""
+    return {"png": png_bytes(fig), "file": file, "alt": alt, "caption": caption}
 
 
 def report_main(args) -> int:
