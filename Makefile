@@ -7,20 +7,20 @@ BIN     = $(VENV)/bin
 .PHONY: demo test bench lint schemas clean
 
 $(BIN)/.installed: pyproject.toml
-	$(PYTHON) -c 'import sys; assert sys.version_info >= (3, 11), "phasetag needs Python 3.11 or newer"'
+	$(PYTHON) -c 'import sys; assert sys.version_info >= (3, 11), "turnstamp needs Python 3.11 or newer"'
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 	$(BIN)/python -m pip install --quiet -e '.[test,report]'
 	touch $@
 
 demo: $(BIN)/.installed
-	$(BIN)/phasetag demo
+	$(BIN)/turnstamp demo
 
 test: $(BIN)/.installed
 	$(BIN)/python -m pytest -q
 
 bench: $(BIN)/.installed
-	$(BIN)/phasetag bench
+	$(BIN)/turnstamp bench
 
 lint: $(BIN)/.installed
 	$(BIN)/python -m pip install --quiet ruff mypy
@@ -28,7 +28,7 @@ lint: $(BIN)/.installed
 	$(BIN)/mypy
 
 schemas: $(BIN)/.installed
-	$(BIN)/phasetag schemas --write schemas
+	$(BIN)/turnstamp schemas --write schemas
 
 clean:
 	rm -rf $(VENV) build *.egg-info

@@ -5,7 +5,7 @@ import os
 import pytest
 from hypothesis import HealthCheck, settings
 
-from phasetag.io.offline import ensure_offline
+from turnstamp.io.offline import ensure_offline
 
 ensure_offline()
 
@@ -32,8 +32,8 @@ NIGHT_START_UTC = "2026-12-02T02:00:00"
 
 @pytest.fixture(scope="session")
 def demo_env():
-    from phasetag.assemble import Environment
-    from phasetag.demo import DEMO_SITE
+    from turnstamp.assemble import Environment
+    from turnstamp.demo import DEMO_SITE
 
     return Environment.from_site(DEMO_SITE)
 
@@ -42,7 +42,7 @@ def demo_env():
 def night_start_tt(demo_env):
     import numpy as np
 
-    from phasetag.core.timebase import Scale, parse_instant, to_tt
+    from turnstamp.core.timebase import Scale, parse_instant, to_tt
 
     return int(to_tt(np.array([parse_instant(NIGHT_START_UTC)]), Scale.UTC,
                      demo_env.leaps)[0][0])
@@ -51,10 +51,10 @@ def night_start_tt(demo_env):
 @pytest.fixture(scope="session")
 def lantern_table(demo_env, night_start_tt):
     """A barycentre table for the invented pulsar over a 6-hour night."""
-    from phasetag.assemble import TableCache, build_target
-    from phasetag.config import BarycentreConfig, TargetConfig
-    from phasetag.core.timebase import NS_PER_S
-    from phasetag.demo import data_file
+    from turnstamp.assemble import TableCache, build_target
+    from turnstamp.config import BarycentreConfig, TargetConfig
+    from turnstamp.core.timebase import NS_PER_S
+    from turnstamp.demo import data_file
 
     setup = build_target(TargetConfig(name="lantern", models=[data_file("lantern.toml")]))
     return TableCache(None, demo_env, BarycentreConfig()).table(
@@ -64,9 +64,9 @@ def lantern_table(demo_env, night_start_tt):
 @pytest.fixture
 def lantern(lantern_table):
     """A fresh TargetSetup for the invented pulsar with two recipes."""
-    from phasetag.assemble import build_target
-    from phasetag.config import RecipeConfig, TargetConfig
-    from phasetag.demo import data_file
+    from turnstamp.assemble import build_target
+    from turnstamp.config import RecipeConfig, TargetConfig
+    from turnstamp.demo import data_file
 
     setup = build_target(TargetConfig(
         name="lantern", models=[data_file("lantern.toml")],

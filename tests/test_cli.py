@@ -4,8 +4,8 @@ import json
 
 import pytest
 
-from phasetag.cli import build_parser, main
-from phasetag.demo import data_file
+from turnstamp.cli import build_parser, main
+from turnstamp.demo import data_file
 
 
 def test_every_subcommand_has_help(capsys):
@@ -78,12 +78,12 @@ def test_inspect_an_archive_file(tmp_path, capsys):
 
 
 def test_stack_and_template_commands(tmp_path, capsys, demo_env, lantern, night_start_tt):
-    from phasetag.core.pipeline import Pipeline, PipelineSettings
-    from phasetag.core.simulate import NightPlan, simulate_night
-    from phasetag.io import schemas
-    from phasetag.io.sinks import RotatingArrowWriter
-    from phasetag.outputs import rows_table
-    from phasetag.recovery import write_checkpoint
+    from turnstamp.core.pipeline import Pipeline, PipelineSettings
+    from turnstamp.core.simulate import NightPlan, simulate_night
+    from turnstamp.io import schemas
+    from turnstamp.io.sinks import RotatingArrowWriter
+    from turnstamp.outputs import rows_table
+    from turnstamp.recovery import write_checkpoint
 
     plan = NightPlan(start_tt_ns=night_start_tt, duration_s=30, pulsed_rate_hz=80,
                      background_rate_hz=400, template=lantern.template, seed=4)

@@ -15,13 +15,13 @@ import pyarrow as pa
 import pytest
 import zmq
 
-from phasetag.config import ServiceConfig
-from phasetag.core.simulate import NightPlan, simulate_night
-from phasetag.demo import data_file, lantern_toml, site_toml
-from phasetag.io import schemas
-from phasetag.io.sinks import read_stream, stream_files
-from phasetag.io.wire import encode_message
-from phasetag.service import Service
+from turnstamp.config import ServiceConfig
+from turnstamp.core.simulate import NightPlan, simulate_night
+from turnstamp.demo import data_file, lantern_toml, site_toml
+from turnstamp.io import schemas
+from turnstamp.io.sinks import read_stream, stream_files
+from turnstamp.io.wire import encode_message
+from turnstamp.service import Service
 
 NIGHT = ("2026-12-02T01:00:00", "2026-12-02T12:00:00")
 RECIPES = """
@@ -82,7 +82,7 @@ def write_config(out: Path, intake: str, extra: str = "") -> Path:
 
 
 def load(path: Path) -> ServiceConfig:
-    from phasetag.config import load_config
+    from turnstamp.config import load_config
 
     return load_config(path)
 
@@ -154,7 +154,7 @@ def test_every_event_sent_is_accounted_for_in_the_files(world, demo_env, lantern
     bad_times[:5] = np.iinfo(np.int64).min  # null times
     messages += [
         [b"not json", b"\x00\x01"],                                    # malformed
-        [json.dumps({"format": "phasetag.events", "version": 99, "source": "x", "sequence": 0,
+        [json.dumps({"format": "turnstamp.events", "version": 99, "source": "x", "sequence": 0,
                      "time_scale": "UTC", "events": 0}).encode(), b""],  # wrong version
         frames_of(batches[1]),                    # duplicate (0 again would mean a restart)
         encode_message("kestrel-test", len(batches) + 3, "UTC",         # a gap of 3, 5 bad
@@ -216,7 +216,7 @@ def test_kill_minus_nine_then_restart_loses_nothing_with_resend(world, demo_env,
     # A kill -9 loses what the service had not committed (at most the message it was
     # processing, plus what ZeroMQ had queued in its memory). The recovery procedure:
     # restart, read the last committed sequence per source, resend after it.
-    from phasetag.io.wire import EventPublisher
+    from turnstamp.io.wire import EventPublisher
 
     out, endpoint = world
     port = int(endpoint.rsplit(":", 1)[1])
@@ -225,7 +225,7 @@ def test_kill_minus_nine_then_restart_loses_nothing_with_resend(world, demo_env,
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=60, seed=9)
     first, second = batches[:15], batches[15:]
     environment = {**os.environ, "PYTHONUNBUFFERED": "1"}
-    command = [sys.executable, "-m", "phasetag", "run", str(config)]
+    command = [sys.executable, "-m", "turnstamp", "run", str(config)]
     context = zmq.Context()
     publisher = EventPublisher(endpoint, "kestrel-test", context=context, keep_last=1000)
 
@@ -344,7 +344,7 @@ def test_live_updates_are_published(world, demo_env, lantern, night_start_tt):
                 message = json.loads(body)
                 if message["counters"].get("events_received") == total:
                     break
-            assert message["format"] == "phasetag.status"
+            assert message["format"] == "turnstamp.status"
             assert message["counters"]["events_received"] == total
             assert message["targets"][0]["recipes"][0]["profile"]["counts"]
     finally:
@@ -401,7 +401,7 @@ def test_live_view_draws_the_running_service(world, demo_env, lantern, night_sta
     # its rendered output read as a string (no terminal needed).
     import io
 
-    from phasetag.watch import run_watch
+    from turnstamp.watch import run_watch
 
     out, endpoint = world
     port = int(endpoint.rsplit(":", 1)[1]) + 3

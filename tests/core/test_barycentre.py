@@ -7,17 +7,17 @@ import pytest
 from astropy.coordinates import EarthLocation
 from astropy.time import Time
 
-from phasetag.core.barycentre import (
+from turnstamp.core.barycentre import (
     GM,
     SPEED_OF_LIGHT,
     BarycentreCalculator,
     CorrectionTable,
     SkyPosition,
 )
-from phasetag.core.earth import GroundSite, OrbitTrack
-from phasetag.core.flags import Quality
-from phasetag.core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, parse_instant, to_tt
-from phasetag.io.tables import ErfaBuiltinEphemeris, default_kernel_path
+from turnstamp.core.earth import GroundSite, OrbitTrack
+from turnstamp.core.flags import Quality
+from turnstamp.core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, parse_instant, to_tt
+from turnstamp.io.tables import ErfaBuiltinEphemeris, default_kernel_path
 
 TARGET = SkyPosition(right_ascension_deg=123.456, declination_deg=23.45)
 NIGHT_UTC = parse_instant("2026-03-10T01:00:00")
@@ -283,7 +283,7 @@ def test_table_says_what_happens_outside_its_coverage(calculator, leaps):
 def test_missing_kernel_falls_back_loudly_with_the_stated_accuracy(monkeypatch, tmp_path):
     # Foundation issue: without the JPL package, erfa's built-in ephemeris only with a
     # loud warning and the stated accuracy; events carry the BUILTIN_EPHEMERIS flag.
-    from phasetag.io import tables
+    from turnstamp.io import tables
 
     monkeypatch.setattr(tables, "default_kernel_path", lambda: tmp_path / "absent.bsp")
     with pytest.warns(RuntimeWarning, match=r"falling back.*15 µs rms \(45 µs max\)"):

@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 from scipy import stats as scipy_stats
 
-from phasetag.core.clockcheck import (
+from turnstamp.core.clockcheck import (
     ChunkOffset,
     ClockVerdict,
     _significance,
@@ -31,8 +31,8 @@ from phasetag.core.clockcheck import (
     fit_wobble,
     unwrap_offsets,
 )
-from phasetag.core.stats import PhaseMoments, TimeBinnedMoments, h_test
-from phasetag.core.template import PeakComponent, PulseTemplate, fit_offset, wrap_cycles
+from turnstamp.core.stats import PhaseMoments, TimeBinnedMoments, h_test
+from turnstamp.core.template import PeakComponent, PulseTemplate, fit_offset, wrap_cycles
 
 NU = 311.37  # Hz, an invented bright millisecond pulsar
 NIGHT_S = 8 * 3600.0

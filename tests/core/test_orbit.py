@@ -20,7 +20,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 from pydantic import TypeAdapter, ValidationError
 
-from phasetag.core.orbit import (
+from turnstamp.core.orbit import (
     SOLAR_MASS_TIME_S,
     BinaryDelay,
     BinaryParameters,
@@ -505,5 +505,5 @@ def test_models_are_frozen_and_relativistic_deformation_bounded():
 
 def test_module_needs_no_messaging_or_columnar_libraries():
     # DEVELOPERS.md: the core imports neither zmq nor pyarrow.
-    code = "import sys, phasetag.core.orbit; sys.exit(bool({'zmq', 'pyarrow'} & set(sys.modules)))"
+    code = "import sys, turnstamp.core.orbit; sys.exit(bool({'zmq', 'pyarrow'} & set(sys.modules)))"
     assert subprocess.run([sys.executable, "-c", code]).returncode == 0

@@ -4,12 +4,12 @@ the clock-chain faults of a simulated night diagnosed through the whole chain.""
 import numpy as np
 import pytest
 
-from phasetag.core import stats
-from phasetag.core.batch import EventBatch
-from phasetag.core.flags import Quality
-from phasetag.core.pipeline import Pipeline, PipelineSettings
-from phasetag.core.simulate import Fault, NightPlan, simulate_night
-from phasetag.core.timebase import NS_PER_S, Scale, from_tt
+from turnstamp.core import stats
+from turnstamp.core.batch import EventBatch
+from turnstamp.core.flags import Quality
+from turnstamp.core.pipeline import Pipeline, PipelineSettings
+from turnstamp.core.simulate import Fault, NightPlan, simulate_night
+from turnstamp.core.timebase import NS_PER_S, Scale, from_tt
 
 
 def make_pipeline(env, *targets, **settings):
@@ -109,8 +109,8 @@ def test_events_outside_model_validity_are_flagged_and_kept_out_of_statistics(
         demo_env, lantern, night_start_tt):
     from decimal import Decimal
 
-    from phasetag.core.spin import PhasePredictor
-    from phasetag.core.tagger import TargetTagger
+    from turnstamp.core.spin import PhasePredictor
+    from turnstamp.core.tagger import TargetTagger
 
     model = lantern.tagger.predictors[0].model
     short = model.model_copy(update={"validity": model.validity.model_copy(update={
@@ -169,8 +169,8 @@ def test_stacking_nights_equals_one_pass_and_refuses_other_phase_references(
     import copy
     import json
 
-    from phasetag.core.pipeline import stack_states
-    from phasetag.errors import InputError
+    from turnstamp.core.pipeline import stack_states
+    from turnstamp.errors import InputError
 
     first = make_pipeline(demo_env, lantern)
     second = make_pipeline(demo_env, copy.deepcopy(lantern))

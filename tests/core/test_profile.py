@@ -16,15 +16,15 @@ import pytest
 from scipy import integrate
 from scipy import stats as scipy_stats
 
-from phasetag.core.profile import (
+from turnstamp.core.profile import (
     BinnedProfile,
     binned_profile,
     harmonic_density,
     harmonic_profile,
     summarize_profile,
 )
-from phasetag.core.stats import PhaseMoments, h_test, z2_series
-from phasetag.core.template import PeakComponent, PulseTemplate, wrap_cycles
+from turnstamp.core.stats import PhaseMoments, h_test, z2_series
+from turnstamp.core.template import PeakComponent, PulseTemplate, wrap_cycles
 
 
 def cosine_sample(n: int, amplitude: float, rng, phase0: float = 0.0) -> np.ndarray:

@@ -10,9 +10,9 @@ CORE_MODULES = ["twofloat", "timebase", "earth", "barycentre", "spin", "orbit", 
 def test_core_imports_neither_zmq_nor_pyarrow():
     code = (
         "import importlib, pkgutil, sys\n"
-        "import phasetag.core as core\n"
+        "import turnstamp.core as core\n"
         "for m in pkgutil.iter_modules(core.__path__):\n"
-        "    importlib.import_module('phasetag.core.' + m.name)\n"
+        "    importlib.import_module('turnstamp.core.' + m.name)\n"
         "bad = sorted(n for n in ('zmq', 'pyarrow') if n in sys.modules)\n"
         "print(','.join(bad))\n"
     )

@@ -8,11 +8,11 @@ import pytest
 from hypothesis import example, given
 from hypothesis import strategies as st
 
-from phasetag.core.flags import Quality
-from phasetag.core.spin import PhasePredictor, SpinModel, derived_quantities
-from phasetag.core.timebase import NS_PER_DAY, NS_PER_S, mjd_to_ns
-from phasetag.errors import ModelError
-from phasetag.io.files import validate
+from turnstamp.core.flags import Quality
+from turnstamp.core.spin import PhasePredictor, SpinModel, derived_quantities
+from turnstamp.core.timebase import NS_PER_DAY, NS_PER_S, mjd_to_ns
+from turnstamp.errors import ModelError
+from turnstamp.io.files import validate
 
 THIRTY_YEARS_NS = int(30 * 365.25 * NS_PER_DAY)
 

@@ -19,7 +19,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 from scipy import stats as scipy_stats
 
-from phasetag.core.stats import (
+from turnstamp.core.stats import (
     DEFAULT_BINS,
     H_CALIBRATED_UP_TO,
     MAX_HARMONICS,
@@ -37,7 +37,7 @@ from phasetag.core.stats import (
     z2_series,
     z2_test,
 )
-from phasetag.errors import InputError
+from turnstamp.errors import InputError
 
 SIX_PHASES = [0.0, 0.1, 0.2, 0.25, 0.3, 0.9]  # REFERENCES.md §1.1
 SIX_WEIGHTS = [1.0, 0.5, 0.5, 1.0, 0.2, 0.1]  # REFERENCES.md §1.4
@@ -750,7 +750,7 @@ def test_time_binned_refuses_bad_input():
 
 def test_module_has_no_io_or_transport_imports():
     # core rule (DEVELOPERS.md): the core imports neither zmq nor pyarrow
-    code = ("import sys, phasetag.core.stats; "
+    code = ("import sys, turnstamp.core.stats; "
             "print(any(m.split('.')[0] in ('zmq', 'pyarrow') for m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"

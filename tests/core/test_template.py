@@ -17,8 +17,8 @@ from pydantic import ValidationError
 from scipy import integrate
 from scipy import stats as scipy_stats
 
-from phasetag.core.stats import PhaseMoments
-from phasetag.core.template import (
+from turnstamp.core.stats import PhaseMoments
+from turnstamp.core.template import (
     OffsetFit,
     PeakComponent,
     PulseTemplate,

@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 from astropy.time import Time
 
-from phasetag.core.flags import Quality
-from phasetag.core.timebase import (
+from turnstamp.core.flags import Quality
+from turnstamp.core.timebase import (
     NS_PER_S,
     ClockCorrection,
     Scale,

@@ -7,7 +7,7 @@ import numpy as np
 from hypothesis import given
 from hypothesis import strategies as st
 
-from phasetag.core.twofloat import (
+from turnstamp.core.twofloat import (
     dd_add,
     dd_from_decimal,
     dd_mul,

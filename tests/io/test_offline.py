@@ -1,13 +1,13 @@
-"""``phasetag tag``: an events file in, the archive's phase columns out."""
+"""``turnstamp tag``: an events file in, the archive's phase columns out."""
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from phasetag.cli import main
-from phasetag.core.simulate import NightPlan, simulate_night
-from phasetag.demo import data_file
+from turnstamp.cli import main
+from turnstamp.core.simulate import NightPlan, simulate_night
+from turnstamp.demo import data_file
 
 
 def write_events(path, batches, parquet=False):
@@ -56,11 +56,11 @@ def test_archive_phase_agrees_with_the_astropy_route_to_its_accuracy(tmp_path, e
     from astropy.coordinates import EarthLocation, SkyCoord
     from astropy.time import Time
 
-    from phasetag.core.barycentre import BarycentreCalculator, SkyPosition
-    from phasetag.core.spin import PhasePredictor
-    from phasetag.core.timebase import NS_PER_S, format_instant
-    from phasetag.io.files import load_spin_model
-    from phasetag.io.tables import default_kernel_path
+    from turnstamp.core.barycentre import BarycentreCalculator, SkyPosition
+    from turnstamp.core.spin import PhasePredictor
+    from turnstamp.core.timebase import NS_PER_S, format_instant
+    from turnstamp.io.files import load_spin_model
+    from turnstamp.io.tables import default_kernel_path
 
     source = tmp_path / "events.arrow"
     write_events(source, events)

@@ -1,4 +1,4 @@
-"""``phasetag report``: a simulated night written as the service writes it, then the report.
+"""``turnstamp report``: a simulated night written as the service writes it, then the report.
 
 The night is fed through the core pipeline and written with the real sinks (no
 service): archive rows per batch, significance and profile rows every 30 s of event
@@ -21,14 +21,14 @@ import numpy as np
 import pyarrow as pa
 import pytest
 
-from phasetag import outputs
-from phasetag.core.flags import Quality
-from phasetag.core.pipeline import Pipeline, PipelineSettings
-from phasetag.core.simulate import NightPlan, simulate_night
-from phasetag.core.timebase import NS_PER_S, Scale, from_tt
-from phasetag.demo import data_file
-from phasetag.io import schemas, sinks
-from phasetag.report import build_report, report_main
+from turnstamp import outputs
+from turnstamp.core.flags import Quality
+from turnstamp.core.pipeline import Pipeline, PipelineSettings
+from turnstamp.core.simulate import NightPlan, simulate_night
+from turnstamp.core.timebase import NS_PER_S, Scale, from_tt
+from turnstamp.demo import data_file
+from turnstamp.io import schemas, sinks
+from turnstamp.report import build_report, report_main
 
 pytest.importorskip("matplotlib")
 
@@ -39,7 +39,7 @@ PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 
 
 def _lantern_config():
-    from phasetag.config import RecipeConfig, TargetConfig
+    from turnstamp.config import RecipeConfig, TargetConfig
 
     return TargetConfig(
         name="lantern", models=[data_file("lantern.toml")],
@@ -76,7 +76,7 @@ def _status(pipeline, env, computed_at, rates, clock, state):
                         "frequency_hz": pipeline.frequency_hz(name), "recipes": recipes,
                         "clock": {"recipe": clock[0][1], "status": verdict.status,
                                   "kind": verdict.kind, "lines": verdict.lines}})
-    return {"format": "phasetag.status", "version": 1, "computed_at_utc_ns": computed_at,
+    return {"format": "turnstamp.status", "version": 1, "computed_at_utc_ns": computed_at,
             "started_utc": "2026-12-02T02:00:00", "state": state,
             "counters": {"messages_received": 0, "messages_rejected": 0,
                          "events_received": counters.received,
@@ -96,9 +96,9 @@ def night(tmp_path_factory, demo_env, lantern_table, night_start_tt):
     """A 4-minute simulated night in an output folder, as the service would leave it.
 
     Also builds a report of the folder half-way through, while the writers are still
-    open (files without footers), as ``phasetag report --every`` would.
+    open (files without footers), as ``turnstamp report --every`` would.
     """
-    from phasetag.assemble import build_target
+    from turnstamp.assemble import build_target
 
     folder = tmp_path_factory.mktemp("night") / "out"
     config = _lantern_config()
@@ -266,7 +266,7 @@ def test_clock_check_and_provenance_are_shown(night, report):
     assert "lantern-2026a (valid MJD 61000 to 62000 (TDB))" in provenance["spin models"]
     assert "Corvid Ridge" in provenance["site"]
     assert "segments of 60 min, degree 10" in provenance["barycentre table"]
-    assert provenance["software"].startswith("phasetag ")
+    assert provenance["software"].startswith("turnstamp ")
     assert "<details><summary>configuration</summary>" in page
 
 
@@ -289,7 +289,7 @@ def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, t
     def interrupt(seconds):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr("phasetag.report.time.sleep", interrupt)
+    monkeypatch.setattr("turnstamp.report.time.sleep", interrupt)
     args = argparse.Namespace(output_dir=str(night["folder"]), to=str(tmp_path / "every"),
                               every=30.0)
     assert report_main(args) == 0
@@ -302,7 +302,7 @@ def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, t
 
 def test_offline_tagging_output_alone_gives_a_report(tmp_path, demo_env, lantern,
                                                      night_start_tt):
-    from phasetag.cli import main
+    from turnstamp.cli import main
 
     plan = NightPlan(start_tt_ns=night_start_tt, duration_s=120, pulsed_rate_hz=40,
                      background_rate_hz=400, template=lantern.template, seed=4)
@@ -328,7 +328,7 @@ def test_offline_tagging_output_alone_gives_a_report(tmp_path, demo_env, lantern
     curve = target["significance"]["all"]
     assert curve["source"] == "computed from the archive rows"
     # the last point of the computed curve equals the H-test of the whole file
-    from phasetag.core import stats
+    from turnstamp.core import stats
 
     moments = stats.PhaseMoments().update(archive["phase"].to_numpy())
     expected = stats.sigma_from_log_p(min(stats.h_test(moments).log_p, 0.0))
@@ -348,7 +348,7 @@ def test_without_matplotlib_the_report_says_how_to_install_it(tmp_path, monkeypa
     monkeypatch.setitem(sys.modules, "matplotlib", None)  # import matplotlib now fails
     args = argparse.Namespace(output_dir=str(tmp_path), to=None, every=None)
     assert report_main(args) == 2
-    assert "pip install 'phasetag[report]'" in capsys.readouterr().err
+    assert "pip install 'turnstamp[report]'" in capsys.readouterr().err
 
 
 def test_numbers_that_do_not_add_up_get_a_red_note(tmp_path):

@@ -5,15 +5,15 @@ from pathlib import Path
 
 import pyarrow as pa
 
-from phasetag.io import schemas
-from phasetag.schema_export import check_schemas
+from turnstamp.io import schemas
+from turnstamp.schema_export import check_schemas
 
 SCHEMAS = Path(__file__).resolve().parents[2] / "schemas"
 
 
 def test_schema_files_are_up_to_date():
     stale = check_schemas(SCHEMAS)
-    assert not stale, f"run `make schemas` (or `phasetag schemas --write schemas`): {stale}"
+    assert not stale, f"run `make schemas` (or `turnstamp schemas --write schemas`): {stale}"
 
 
 def test_every_output_field_documents_its_meaning():
@@ -31,7 +31,7 @@ def test_json_schemas_validate_the_shipped_examples():
 
     import jsonschema
 
-    from phasetag.demo import data_file
+    from turnstamp.demo import data_file
 
     for example, schema in (("lantern.toml", "spin-model"), ("ember.toml", "spin-model"),
                             ("lantern-template.toml", "template")):

@@ -20,9 +20,9 @@ import numpy as np
 import pyarrow as pa
 import pytest
 
-from phasetag.io import sinks
-from phasetag.io.schemas import OUTPUTS
-from phasetag.io.sinks import (
+from turnstamp.io import sinks
+from turnstamp.io.schemas import OUTPUTS
+from turnstamp.io.sinks import (
     ArrowFileError,
     RotatingArrowWriter,
     SchemaMismatchError,
@@ -37,10 +37,10 @@ from phasetag.io.sinks import (
 )
 
 PROVENANCE = {
-    "phasetag.config": json.dumps({"targets": ["target-alpha"], "rotate_seconds": 3600}),
-    "phasetag.model_ids": "spin-model-7,spin-model-8",
-    "phasetag.tables": "earth-orientation 2026-11-28; leap seconds 2026-07-01",
-    "phasetag.software_version": "0.1.0",
+    "turnstamp.config": json.dumps({"targets": ["target-alpha"], "rotate_seconds": 3600}),
+    "turnstamp.model_ids": "spin-model-7,spin-model-8",
+    "turnstamp.tables": "earth-orientation 2026-11-28; leap seconds 2026-07-01",
+    "turnstamp.software_version": "0.1.0",
 }
 
 # Small vocabularies for the dictionary-encoded columns; each batch uses a rotated
@@ -160,8 +160,8 @@ def test_round_trip_of_every_output_schema(tmp_path, rng, stem):
         assert table.schema.field(field.name).metadata == field.metadata  # unit, description
     metadata = {k.decode(): v.decode() for k, v in table.schema.metadata.items()}
     assert {k: metadata[k] for k in PROVENANCE} == PROVENANCE
-    assert metadata["phasetag.stream"] == stem
-    assert metadata["phasetag.opened_utc"].endswith("Z")
+    assert metadata["turnstamp.stream"] == stem
+    assert metadata["turnstamp.opened_utc"].endswith("Z")
     expected = {name: sum((part[name] for part in parts), []) for name in schema.names}
     assert table.to_pydict() == expected
     assert _same_rows(read_arrow_file(path), table)
@@ -181,7 +181,7 @@ def test_changing_dictionaries_are_written_as_deltas(tmp_path):
     # pyarrow's reader exposes the dictionary of the last batch: values in first-seen order
     assert table.column("target").chunks[-1].dictionary.to_pylist() == ["b", "a", "c", "d"]
     assert table.schema.metadata[b"description"] == b"schema-level metadata is kept"
-    assert table.schema.metadata[b"phasetag.software_version"] == b"0.1.0"
+    assert table.schema.metadata[b"turnstamp.software_version"] == b"0.1.0"
 
 
 def test_schema_mismatch_names_the_field_and_writes_nothing(tmp_path):
@@ -229,7 +229,7 @@ def test_writer_misuse(tmp_path):
     with pytest.raises(ValueError, match="stem"):
         RotatingArrowWriter(tmp_path, "../ledger", schema)
     with pytest.raises(ValueError, match="set by the writer"):
-        RotatingArrowWriter(tmp_path, "ledger", schema, metadata={"phasetag.stream": "x"})
+        RotatingArrowWriter(tmp_path, "ledger", schema, metadata={"turnstamp.stream": "x"})
     with pytest.raises(TypeError, match="str"):
         RotatingArrowWriter(tmp_path, "ledger", schema, metadata={"version": 1})
     writer = RotatingArrowWriter(tmp_path, "ledger", schema)
@@ -271,12 +271,12 @@ def test_rotation_by_time_with_an_injected_clock(tmp_path, rng):
     files = writer.files()
     assert [p.name for p in files] == sorted(p.name for p in files)
     assert [p.name for p in files] == [first.file_name, second.file_name, third.file_name]
-    opened = [_metadata(p)["phasetag.opened_utc"] for p in files]
+    opened = [_metadata(p)["turnstamp.opened_utc"] for p in files]
     assert opened == ["2026-12-01T20:00:00.000000Z", "2026-12-01T20:10:00.000000Z",
                       "2026-12-01T20:21:40.000000Z"]
     for path in files:
         meta = _metadata(path)
-        assert meta["phasetag.stream"] == "significance"
+        assert meta["turnstamp.stream"] == "significance"
         assert {k: meta[k] for k in PROVENANCE} == PROVENANCE
     assert read_stream(tmp_path, "significance").num_rows == 12
 
@@ -309,7 +309,7 @@ def test_names_stay_ordered_across_clock_steps_and_restarts(tmp_path, rng):
     assert writer.write(realistic_columns(schema, 2, 1, rng)).file_name == \
         "clock-20261201T200000Z-00002.arrow"  # label clamped, counter continues
     writer.close()
-    assert _metadata(writer.files()[1])["phasetag.opened_utc"].startswith("2026-12-01T19:00")
+    assert _metadata(writer.files()[1])["turnstamp.opened_utc"].startswith("2026-12-01T19:00")
 
     again = RotatingArrowWriter(tmp_path, "clock", schema, clock=clock)  # a restart
     again.write(realistic_columns(schema, 2, 2, rng))
@@ -526,8 +526,8 @@ def test_not_an_arrow_file(tmp_path):
 CHILD = textwrap.dedent("""
     import io, os, signal, sys
     import numpy as np
-    import phasetag.io.sinks as sinks
-    from phasetag.io.schemas import OUTPUTS
+    import turnstamp.io.sinks as sinks
+    from turnstamp.io.schemas import OUTPUTS
 
     directory, mode = sys.argv[1], sys.argv[2]
     rows, rotate_bytes = int(sys.argv[3]), int(sys.argv[4])
@@ -562,7 +562,7 @@ CHILD = textwrap.dedent("""
 
     writer = sinks.RotatingArrowWriter(directory, "archive", OUTPUTS["archive"],
                                        rotate_seconds=None, rotate_bytes=rotate_bytes,
-                                       metadata={"phasetag.run": mode})
+                                       metadata={"turnstamp.run": mode})
     sizes = [0]
     for batch in range(100000):
         if batch == 5:
@@ -624,7 +624,7 @@ def _check_after_kill(directory, reported, rows):
     reports = recover_partial_files(directory)
     assert all(r.action in ("rewritten", "removed") for r in reports), reports
     for path in stream_files(directory, "archive"):
-        assert pa.ipc.open_file(path).schema.metadata[b"phasetag.run"]  # metadata kept
+        assert pa.ipc.open_file(path).schema.metadata[b"turnstamp.run"]  # metadata kept
     after = read_stream(directory, "archive")
     assert _same_rows(after, before)
     assert recover_partial_files(directory) == []

@@ -1,4 +1,4 @@
-"""``phasetag watch``: the status screen, and the loop over a PUB socket or a folder."""
+"""``turnstamp watch``: the status screen, and the loop over a PUB socket or a folder."""
 
 from __future__ import annotations
 
@@ -12,9 +12,9 @@ import numpy as np
 import pytest
 import zmq
 
-from phasetag.core.timebase import parse_instant
-from phasetag.io.sinks import atomic_write_json
-from phasetag.watch import BLOCKS, profile_bars, render_status, run_watch, watch_main
+from turnstamp.core.timebase import parse_instant
+from turnstamp.io.sinks import atomic_write_json
+from turnstamp.watch import BLOCKS, profile_bars, render_status, run_watch, watch_main
 
 ESCAPE = re.compile(r"\x1b")
 
@@ -31,7 +31,7 @@ def _profile(peak_bin: int, background: float, pulsed: float, bins: int = 32):
 def make_status(**changes):
     """A status as the service writes it: two targets, the Ember clock check inconclusive."""
     status = {
-        "format": "phasetag.status", "version": 1,
+        "format": "turnstamp.status", "version": 1,
         "computed_at_utc_ns": parse_instant("2026-12-02T02:04:05"),  # a UTC label
         "started_utc": "2026-12-02T02:00:00", "state": "running",
         "counters": {"messages_received": 48, "messages_rejected": 1,
@@ -139,7 +139,7 @@ def test_profile_bars_fit_a_narrow_screen_and_keep_the_shape():
 
 
 def test_missing_keys_and_odd_values_do_not_break_the_screen():
-    assert "phasetag" in render_status({})
+    assert "turnstamp" in render_status({})
     odd = {"state": "stopped", "counters": {"events_received": 10, "events_tagged": 3,
                                             "events_filtered": 3, "events_rejected": 3},
            "targets": [{"name": "lantern", "recipes": [{"name": "all", "windows": None,
@@ -193,7 +193,7 @@ def test_once_reads_one_status_from_the_publisher():
     text = out.getvalue()
     assert not ESCAPE.search(text)  # a StringIO is not a terminal
     assert "477,090 received" in text and "lantern" in text and "20.18" in text
-    assert text.count("phasetag * running") == 1
+    assert text.count("turnstamp * running") == 1
 
 
 def test_the_loop_prints_plain_blocks_of_the_newest_status():
@@ -202,7 +202,7 @@ def test_the_loop_prints_plain_blocks_of_the_newest_status():
         out = io.StringIO()
         assert run_watch(endpoint=publisher.endpoint, out=out, max_frames=3,
                          interval_s=0.2) == 0
-    blocks = out.getvalue().split("\n\nphasetag ")
+    blocks = out.getvalue().split("\n\nturnstamp ")
     assert len(blocks) == 3 and not ESCAPE.search(out.getvalue())
     rates = [float(m.replace(",", "")) for m in
              re.findall(r"rate +([\d,.]+) events/s", out.getvalue())]
@@ -227,7 +227,7 @@ def test_folder_mode_reads_status_json(tmp_path, capsys):
     atomic_write_json(tmp_path / "status.json", make_status(state="stopped"))
     out = io.StringIO()
     assert run_watch(folder=tmp_path, once=True, out=out) == 0
-    assert "phasetag * stopped" in out.getvalue()
+    assert "turnstamp * stopped" in out.getvalue()
     assert "the service has stopped" in out.getvalue()
     args = argparse.Namespace(endpoint=None, folder=str(tmp_path), once=True)
     assert watch_main(args) == 0

@@ -13,10 +13,10 @@ import zmq
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from phasetag.core.batch import MISSING_ID, MISSING_TIME, EventBatch
-from phasetag.core.timebase import Scale
-from phasetag.errors import InputError, RejectReason
-from phasetag.io.wire import (
+from turnstamp.core.batch import MISSING_ID, MISSING_TIME, EventBatch
+from turnstamp.core.timebase import Scale
+from turnstamp.errors import InputError, RejectReason
+from turnstamp.io.wire import (
     MAX_HEADER_BYTES,
     WIRE_VERSION,
     DecodedMessage,
@@ -39,7 +39,7 @@ def decode(frames, has_topic=False, **limits):
 
 
 def header(**changes) -> dict:
-    fields = {"format": "phasetag.events", "version": 1, "source": "builder-7",
+    fields = {"format": "turnstamp.events", "version": 1, "source": "builder-7",
               "sequence": 12, "time_scale": "TAI", "events": 3}
     fields.update(changes)
     return {k: v for k, v in fields.items() if v is not _DROP}
@@ -102,7 +102,7 @@ def test_round_trip_every_column(rng):
     assert decoded.topic == b"events"
     assert decoded.notes == []
     assert decoded.message_bytes == sum(map(len, frames))
-    assert decoded.header == MessageHeader(format="phasetag.events", version=WIRE_VERSION,
+    assert decoded.header == MessageHeader(format="turnstamp.events", version=WIRE_VERSION,
                                            source="array-east.2", sequence=41,
                                            time_scale="GPS", events=257, sent_utc_ns=123)
     batch = decoded.batch

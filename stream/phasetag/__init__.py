@@ -1,8 +1,0 @@
-"""phasetag: barycentric phase tagging and live periodicity monitoring.
-
-The numerical core lives in :mod:`phasetag.core` and does no I/O; the shell
-(wire format, sinks, service, command line) lives in :mod:`phasetag.io` and the
-top-level modules.
-"""
-
-__version__ = "0.1.0"

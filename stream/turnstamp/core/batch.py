@@ -1,0 +1,124 @@
+"""The unit of work: one batch of detected events from one source, as columns.
+
+Decoding (``turnstamp.io.wire``) validates structure and types at the edge and
+yields an ``EventBatch``; the core then checks values (``check_values``).
+Missing values arrive as sentinels: ``MISSING_TIME`` in ``time_ns``,
+``MISSING_ID`` in ``event_id``, NaN in float columns.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, fields, replace
+
+import numpy as np
+
+from ..errors import RejectReason
+from .timebase import Scale
+
+__all__ = ["EventBatch", "OPTIONAL_COLUMNS", "MISSING_TIME", "MISSING_ID", "VALUE_CHECKS",
+           "check_values"]
+
+MISSING_TIME = np.iinfo(np.int64).min
+MISSING_ID = np.iinfo(np.uint64).max
+
+OPTIONAL_COLUMNS = {
+    # name: (numpy dtype, unit and meaning)
+    "energy_kev": (np.float64, "reconstructed energy, keV"),
+    "ra_deg": (np.float64, "reconstructed right ascension (ICRS), degrees"),
+    "dec_deg": (np.float64, "reconstructed declination (ICRS), degrees"),
+    "score": (np.float64, "classifier score (e.g. gamma-ness), instrument-defined scale"),
+    "weight": (np.float64, "photon weight, e.g. probability of coming from the target, >= 0"),
+    "telescope_mask": (np.uint64, "bit mask of the telescopes that saw the event"),
+}
+
+
+@dataclass(frozen=True)
+class EventBatch:
+    """Columns of one message. All arrays have the same length.
+
+    Parameters
+    ----------
+    source : str
+        The event builder's identifier.
+    sequence : int
+        The message's sequence number from that source (0, 1, 2, ...).
+    time_scale : Scale
+        Scale of ``time_ns`` (UTC labels, TAI, GPS or TT).
+    event_id : uint64 array
+    time_ns : int64 array
+        Arrival times, ns since 2000-01-01T12:00:00 in ``time_scale``.
+    """
+
+    source: str
+    sequence: int
+    time_scale: Scale
+    event_id: np.ndarray
+    time_ns: np.ndarray
+    energy_kev: np.ndarray | None = None
+    ra_deg: np.ndarray | None = None
+    dec_deg: np.ndarray | None = None
+    score: np.ndarray | None = None
+    weight: np.ndarray | None = None
+    telescope_mask: np.ndarray | None = None
+
+    def __post_init__(self):
+        n = len(self.event_id)
+        for f in fields(self):
+            value = getattr(self, f.name)
+            if isinstance(value, np.ndarray) and len(value) != n:
+                raise ValueError(f"column {f.name} has {len(value)} rows, event_id has {n}")
+
+    def __len__(self) -> int:
+        return len(self.event_id)
+
+    def columns(self) -> dict[str, np.ndarray]:
+        """The array columns that are present."""
+        return {f.name: getattr(self, f.name) for f in fields(self)
+                if isinstance(getattr(self, f.name), np.ndarray)}
+
+    def take(self, index) -> EventBatch:
+        """A batch of the selected rows (boolean mask or indices)."""
+        return replace(self, **{name: column[index] for name, column in self.columns().items()})
+
+
+VALUE_CHECKS: tuple[tuple[RejectReason, str], ...] = (
+    (RejectReason.BAD_VALUE, "event_id missing"),
+    (RejectReason.BAD_TIME, "time_ns missing"),
+    (RejectReason.BAD_TIME, "time_ns outside the plausible range"),
+    (RejectReason.BAD_VALUE, "energy_kev is not finite or negative"),
+    (RejectReason.BAD_VALUE, "ra_deg/dec_deg not finite, or dec_deg outside [-90, 90]"),
+    (RejectReason.BAD_VALUE, "score is not finite"),
+    (RejectReason.BAD_VALUE, "weight is not finite or negative"),
+    (RejectReason.DUPLICATE_EVENT_ID, "event_id repeated within the message"),
+)
+"""Code k (1-based) returned by ``check_values`` means ``VALUE_CHECKS[k - 1]``."""
+
+
+def check_values(batch: EventBatch, earliest_ns: int, latest_ns: int) -> np.ndarray:
+    """Per-event value checks: uint8 codes, 0 = accepted, else 1 + index into
+    ``VALUE_CHECKS`` (the first failing check wins)."""
+    n = len(batch)
+    codes = np.zeros(n, np.uint8)
+
+    def refuse(mask, code):
+        np.copyto(codes, np.uint8(code), where=mask & (codes == 0))
+
+    time = batch.time_ns
+    refuse(batch.event_id == MISSING_ID, 1)
+    refuse(time == MISSING_TIME, 2)
+    refuse((time < earliest_ns) | (time > latest_ns), 3)
+    if batch.energy_kev is not None:
+        refuse(~(batch.energy_kev >= 0) | ~np.isfinite(batch.energy_kev), 4)
+    if batch.ra_deg is not None and batch.dec_deg is not None:
+        refuse(~np.isfinite(batch.ra_deg) | ~(np.abs(batch.dec_deg) <= 90), 5)
+    if batch.score is not None:
+        refuse(~np.isfinite(batch.score), 6)
+    if batch.weight is not None:
+        refuse(~(batch.weight >= 0) | ~np.isfinite(batch.weight), 7)
+    if n > 1 and not np.all(batch.event_id[1:] > batch.event_id[:-1]):  # sorted: no repeats
+        order = np.argsort(batch.event_id, kind="stable")
+        same = batch.event_id[order][1:] == batch.event_id[order][:-1]
+        repeated = np.zeros(n, bool)
+        repeated[order[1:][same]] = True
+        refuse(repeated, 8)
+    return codes

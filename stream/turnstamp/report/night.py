@@ -1,0 +1,223 @@
+"""Reading an output folder: the small streams, ``status.json`` and the provenance in
+the files' schema metadata (the archive itself is reduced in ``timegrid``)."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import pyarrow as pa
+
+from ..io import schemas, sinks
+
+__all__ = [
+    "ReportError",
+    "NightFolder",
+    "load_night",
+    "metadata_of",
+    "read_any",
+    "json_or_none",
+    "recipes_from_metadata",
+    "config_targets",
+]
+
+
+class ReportError(RuntimeError):
+    """The report cannot be built (missing optional dependency, no outputs)."""
+
+
+@dataclass
+class NightFolder:
+    """Everything read from one output folder (archive reduced separately)."""
+
+    folder: Path
+    mode: str  # "service" (stream files) or "tagging" (one archive-schema file)
+    archive_files: list[Path]
+    metadata: dict[str, str]
+    tables: dict[str, pa.Table | None]  # stem -> rows, None when the stream is absent
+    status: dict | None
+    files: dict[str, dict[str, int]]  # stem -> files, rows, partial
+    notes: list[str] = field(default_factory=list)
+
+    def table(self, stem: str) -> pa.Table | None:
+        table = self.tables.get(stem)
+        return table if table is not None and table.num_rows else None
+
+
+def metadata_of(schema: pa.Schema) -> dict[str, str]:
+    return {k.decode(errors="replace"): v.decode(errors="replace")
+            for k, v in (schema.metadata or {}).items()}
+
+
+def read_any(path: Path) -> pa.Table:
+    if path.suffix.lower() == ".parquet":
+        import pyarrow.parquet as pq
+
+        return pq.read_table(path)
+    return sinks.read_arrow_file(path)
+
+
+def _is_schema(table: pa.Table, schema: pa.Schema) -> bool:
+    return set(schema.names) <= set(table.schema.names)
+
+
+def load_night(output_dir: Path) -> NightFolder:
+    """Read the small streams, ``status.json`` and provenance of an output folder.
+
+    Parameters
+    ----------
+    output_dir : Path
+        A service output folder (live or finished) or a folder holding the output
+        of ``turnstamp tag`` (an archive-schema ``.arrow``/``.parquet`` file).
+
+    Returns
+    -------
+    NightFolder
+
+    Raises
+    ------
+    FileNotFoundError
+        The folder does not exist.
+    ReportError
+        The folder holds no turnstamp output at all.
+    """
+    folder = Path(output_dir)
+    if not folder.is_dir():
+        raise FileNotFoundError(f"{folder}: no such output folder")
+    tables: dict[str, pa.Table | None] = {}
+    files: dict[str, dict[str, int]] = {}
+    metadata: dict[str, str] = {}
+    notes: list[str] = []
+    newest: dict[str, dict[str, str]] = {}  # stem -> metadata of its newest file
+    for stem in schemas.OUTPUTS:
+        paths = sinks.stream_files(folder, stem)
+        if not paths:
+            tables[stem] = None
+            continue
+        partial = 0
+        rows = 0
+        pieces = []
+        for path in paths:
+            try:
+                table, info = sinks.read_arrow_file_report(path)
+            except (sinks.ArrowFileError, OSError) as exc:  # OSError: rotated away meanwhile
+                notes.append(f"{path.name} skipped: {exc}")
+                continue
+            partial += not info.complete
+            rows += table.num_rows
+            if stem != "archive":
+                pieces.append(table)
+            newest[stem] = metadata_of(table.schema)
+        files[stem] = {"files": len(paths), "rows": rows, "partial": partial}
+        if stem == "archive":
+            tables[stem] = None
+        else:
+            tables[stem] = pa.concat_tables(pieces, promote_options="permissive") \
+                if pieces else schemas.OUTPUTS[stem].empty_table()
+    for stem in reversed(schemas.OUTPUTS):  # the archive's provenance wins
+        metadata.update(newest.get(stem, {}))
+    archive_files = sinks.stream_files(folder, "archive")
+    mode = "service"
+    if not archive_files and not any(files.get(s) for s in schemas.OUTPUTS):
+        archive_files, extra_rejects = [], []
+        for path in sorted([*folder.glob("*.arrow"), *folder.glob("*.parquet")]):
+            if path.name.startswith("."):
+                continue
+            try:
+                table = read_any(path)
+            except (sinks.ArrowFileError, OSError, pa.ArrowException) as exc:
+                notes.append(f"{path.name} skipped: {exc}")
+                continue
+            if _is_schema(table, schemas.ARCHIVE):
+                archive_files.append(path)
+                metadata = metadata or metadata_of(table.schema)
+                entry = files.setdefault("archive", {"files": 0, "rows": 0, "partial": 0})
+                entry["files"] += 1
+                entry["rows"] += table.num_rows
+            elif _is_schema(table, schemas.REJECTS):
+                extra_rejects.append(table.select(schemas.REJECTS.names))
+        if not archive_files:
+            raise ReportError(f"{folder}: no turnstamp output here (no stream files and no "
+                              "file of archive schema)")
+        mode = "tagging"
+        if extra_rejects:
+            tables["rejects"] = pa.concat_tables(extra_rejects, promote_options="permissive")
+            files["rejects"] = {"files": len(extra_rejects),
+                                "rows": tables["rejects"].num_rows, "partial": 0}
+    status = None
+    status_path = folder / "status.json"
+    if status_path.exists():
+        try:
+            status = json.loads(status_path.read_text(encoding="utf-8"))
+            if not isinstance(status, dict):
+                raise ValueError("not a JSON object")
+        except (OSError, ValueError) as exc:
+            notes.append(f"status.json unreadable: {exc}")
+            status = None
+    night = NightFolder(folder, mode, archive_files, metadata, tables, status, files, notes)
+    _note_missing(night)
+    return night
+
+
+def _note_missing(night: NightFolder) -> None:
+    if night.mode == "tagging":
+        night.notes.append(
+            "Offline tagging output (one archive-schema file): the profile, phaseogram and "
+            "significance curve are computed here from the archive rows (cumulative only, "
+            "unweighted unless the recipe says otherwise); there are no sliding windows, "
+            "no template fit, no clock-chain check and no ledger of received messages.")
+        return
+    missing = {"archive": "no phaseogram (and no profile if the profiles stream is missing)",
+               "significance": "significance curve computed from the archive (cumulative only)",
+               "profiles": "profile computed from the archive phases (no template fit)",
+               "clock": "no clock-chain check",
+               "ledger": "accounting without the per-message ledger",
+               "rejects": "no list of rejected events by reason"}
+    for stem, consequence in missing.items():
+        if night.tables.get(stem) is None and stem != "archive" or \
+                stem == "archive" and not night.archive_files:
+            night.notes.append(f"No {stem} stream in the folder: {consequence}.")
+    partial = [f"{stem} ({entry['partial']})" for stem, entry in night.files.items()
+               if entry.get("partial")]
+    if partial:
+        night.notes.append("Open or cut-short files read up to their last complete batch: "
+                           + ", ".join(partial) + ".")
+
+
+def json_or_none(text: str | None) -> Any:
+    if not text:
+        return None
+    try:
+        return json.loads(text)
+    except ValueError:
+        return None
+
+
+def recipes_from_metadata(meta: dict[str, str]) -> dict[str, list[str]]:
+    """Recipe names in bit order per target, from one file's metadata."""
+    by_target = json_or_none(meta.get("recipes_by_target"))
+    if isinstance(by_target, dict):
+        return {str(k): [str(r) for r in (v.split(",") if isinstance(v, str) else v)]
+                for k, v in by_target.items()}
+    recipes = meta.get("recipes")
+    parsed = json_or_none(recipes)
+    if isinstance(parsed, dict):
+        return {str(k): [str(r) for r in (v.split(",") if isinstance(v, str) else v)]
+                for k, v in parsed.items()}
+    if recipes and meta.get("target"):
+        return {meta["target"]: [r for r in recipes.split(",") if r]}
+    config = json_or_none(meta.get("config"))
+    if isinstance(config, dict) and isinstance(config.get("targets"), list):
+        return {str(t.get("name")): [str(r.get("name")) for r in t.get("recipes") or
+                                     [{"name": "all"}]]
+                for t in config["targets"] if isinstance(t, dict)}
+    return {}
+
+
+def config_targets(meta: dict[str, str]) -> dict[str, dict]:
+    config = json_or_none(meta.get("config"))
+    if isinstance(config, dict) and isinstance(config.get("targets"), list):
+        return {str(t.get("name")): t for t in config["targets"] if isinstance(t, dict)}
+    return {}
