@@ -1,11 +1,13 @@
 """The files turnstamp reads and writes.
 
-``schemas``   Arrow schemas of the event stream and of every output, with units
-``writer``    rotating crash-safe Arrow writers (``conform``: batches fitted to a
-              schema; ``durable``: atomic small files, publishing, locks)
-``reader``    listing a stream's files, reading complete and partial files
-``recovery``  finishing footer-less files at start-up
-``arrow_metadata``  the two facts of Arrow IPC metadata that pyarrow does not expose
-``inputs``    TOML/JSON spin-model and template files with exact decimals
-``bundled``   leap seconds, Earth orientation, JPL kernel from installed packages
+``schemas``         Arrow schemas of the event stream and of every output, with units
+``writer``          one output stream as rotating, crash-safe Arrow IPC files
+``conform``         batches fitted to a stream's schema; dictionaries grown by deltas
+``durable``         atomic small files, publishing without replacing, locks, fsync
+``reader``          a stream's files in write order; reading complete and partial files
+``message_scan``    walking a file's IPC messages: a cut tail versus corruption
+``arrow_metadata``  the two fields of IPC message metadata pyarrow does not expose
+``recovery``        finishing footer-less files at start-up
+``inputs``          TOML/JSON spin-model and template files with exact decimals
+``bundled``         leap seconds, Earth orientation, JPL kernel from installed packages
 """

@@ -301,6 +301,7 @@ def _survey_body(body: pa.Buffer, context: MessageContext) -> int:
             raise context.refuse(RejectReason.MALFORMED_MESSAGE,
                                  f"body has an Arrow IPC message of type {kind!r}; only "
                                  "schema, dictionary and record batches are allowed")
+        # pyarrow cannot tell this before decompressing: see files.arrow_metadata
         if uses_compression(message):
             raise context.refuse(RejectReason.MALFORMED_MESSAGE,
                                  "body uses Arrow IPC buffer compression, which this "
