@@ -5,7 +5,7 @@ import os
 import pytest
 from hypothesis import HealthCheck, settings
 
-from turnstamp.io.offline import ensure_offline
+from turnstamp.files.bundled import ensure_offline
 
 ensure_offline()
 

@@ -80,8 +80,8 @@ def test_inspect_an_archive_file(tmp_path, capsys):
 def test_stack_and_template_commands(tmp_path, capsys, demo_env, lantern, night_start_tt):
     from turnstamp.core.pipeline import Pipeline, PipelineSettings
     from turnstamp.core.simulate import NightPlan, simulate_night
-    from turnstamp.io import schemas
-    from turnstamp.io.sinks import RotatingArrowWriter
+    from turnstamp.files import schemas
+    from turnstamp.files.writer import RotatingArrowWriter
     from turnstamp.outputs import rows_table
     from turnstamp.recovery import write_checkpoint
 

@@ -18,10 +18,10 @@ import zmq
 from turnstamp.config import ServiceConfig
 from turnstamp.core.simulate import NightPlan, simulate_night
 from turnstamp.demo import data_file, lantern_toml, site_toml
-from turnstamp.io import schemas
-from turnstamp.io.sinks import read_stream, stream_files
-from turnstamp.io.wire import encode_message
+from turnstamp.files import schemas
+from turnstamp.files.reader import read_stream, stream_files
 from turnstamp.service import Service
+from turnstamp.wire.encode import encode_message
 
 NIGHT = ("2026-12-02T01:00:00", "2026-12-02T12:00:00")
 RECIPES = """
@@ -216,7 +216,7 @@ def test_kill_minus_nine_then_restart_loses_nothing_with_resend(world, demo_env,
     # A kill -9 loses what the service had not committed (at most the message it was
     # processing, plus what ZeroMQ had queued in its memory). The recovery procedure:
     # restart, read the last committed sequence per source, resend after it.
-    from turnstamp.io.wire import EventPublisher
+    from turnstamp.wire.publisher import EventPublisher
 
     out, endpoint = world
     port = int(endpoint.rsplit(":", 1)[1])

@@ -25,8 +25,8 @@ from .core.spin import PhasePredictor, SpinModel
 from .core.tagger import TargetTagger
 from .core.timebase import NS_PER_S, ClockCorrection, LeapSecondTable, parse_instant
 from .errors import ConfigError
-from .io.files import load_spin_model, load_template
-from .io.tables import bundled_leap_seconds, load_earth_orientation, open_ephemeris
+from .files.bundled import bundled_leap_seconds, load_earth_orientation, open_ephemeris
+from .files.inputs import load_spin_model, load_template
 
 __all__ = ["Environment", "TableCache", "load_predictors", "build_target", "recipe_from"]
 
@@ -54,7 +54,7 @@ def _read_clock_file(path: Path) -> tuple[list[int], list[float]]:
 def _read_orbit_file(path: Path, name: str) -> OrbitTrack:
     import pyarrow.csv as pacsv
 
-    from .io.sinks import read_arrow_file
+    from .files.reader import read_arrow_file
 
     table = pacsv.read_csv(path) if path.suffix.lower() == ".csv" else read_arrow_file(path)
     columns = set(table.column_names)

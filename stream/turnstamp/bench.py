@@ -69,7 +69,7 @@ def bench_tagging(sizes=(10**6, 10**7), astropy_events=2000, repeats=3) -> dict:
     from astropy.time import Time
 
     from .core.timebase import NS_PER_DAY, NS_PER_S
-    from .io.tables import default_kernel_path
+    from .files.bundled import default_kernel_path
 
     env, target, start = _night()
     tagger = target.tagger

@@ -49,7 +49,7 @@ def cmd_tag(args) -> int:
 
 def cmd_model(args) -> int:
     from .core.spin import derived_quantities
-    from .io.files import load_spin_model
+    from .files.inputs import load_spin_model
 
     status = 0
     for path in args.models:
@@ -130,7 +130,7 @@ def cmd_stack(args) -> int:
 
 
 def cmd_template(args) -> int:
-    from .io.sinks import read_stream
+    from .files.reader import read_stream
 
     rows = [r for r in read_stream(Path(args.output_dir), "profiles").to_pylist()
             if r["target"] == args.target and r["recipe"] == args.recipe]
@@ -143,7 +143,7 @@ def cmd_template(args) -> int:
              f'name = "{args.name or args.target}"',
              "binned_profile = [" + ", ".join(f"{c:.6g}" for c in counts) + "]"]
     Path(args.out).write_text("\n".join(lines) + "\n")
-    from .io.files import load_template
+    from .files.inputs import load_template
 
     load_template(args.out)  # what we wrote must load
     print(f"template with {len(counts)} bins written to {args.out}")
@@ -321,7 +321,7 @@ def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
                         format="%(asctime)s %(levelname)s %(name)s: %(message)s")
-    from .io.offline import ensure_offline
+    from .files.bundled import ensure_offline
 
     ensure_offline()
     try:

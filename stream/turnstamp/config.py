@@ -287,7 +287,7 @@ def _resolve(data, base: Path):
 
 def load_config(path: str | Path, model: type[BaseModel] = ServiceConfig):
     """Read and validate a configuration file; errors name the field and value."""
-    from .io.files import validate
+    from .files.inputs import validate
 
     path = Path(path)
     try:

@@ -5,13 +5,28 @@ a model file, an event file, a configuration, a message. Its text names the
 field and the offending value, and where it makes sense the allowed set. Our own
 bugs raise ordinary exceptions (``AssertionError``, ``RuntimeError``) and are
 never caught by the service loop's peer-error handling.
+
+Every error class of the package lives here: the input errors, the wire
+format's refusal (``WireError``), and the errors of the Arrow files
+(``SchemaMismatchError``, ``ArrowFileError``, ``ArrowMetadataError``).
 """
 
 from __future__ import annotations
 
 from enum import StrEnum
+from pathlib import Path
 
-__all__ = ["InputError", "ModelError", "ConfigError", "EventFileError", "RejectReason"]
+__all__ = [
+    "InputError",
+    "ModelError",
+    "ConfigError",
+    "EventFileError",
+    "RejectReason",
+    "WireError",
+    "SchemaMismatchError",
+    "ArrowFileError",
+    "ArrowMetadataError",
+]
 
 
 class InputError(ValueError):
@@ -50,3 +65,66 @@ class RejectReason(StrEnum):
     BAD_VALUE = "bad_value"
     OUTSIDE_TABLE_COVERAGE = "outside_table_coverage"
     NO_MODEL = "no_model"
+
+
+class WireError(InputError):
+    """A message was refused as a whole (the peer's fault, never ours).
+
+    Parameters
+    ----------
+    reason : RejectReason
+        Code for the rejects output.
+    detail : str
+        What was wrong, naming the field and the value.
+    source, sequence : str or None, int or None
+        From the header, as far as it could be read.
+    events : int
+        The header's event count when it could be read, else 0.
+    """
+
+    def __init__(self, reason: RejectReason, detail: str, source: str | None = None,
+                 sequence: int | None = None, events: int = 0):
+        self.reason = RejectReason(reason)
+        self.detail = detail
+        self.source = source
+        self.sequence = sequence
+        self.events = events
+        where = f" (source {source!r}, sequence {sequence})" if source is not None else ""
+        super().__init__("message", None if source is None else f"{source}#{sequence}", detail,
+                         message=f"{self.reason.value}: {detail}{where}")
+
+    def __reduce__(self):
+        return (type(self), (self.reason, self.detail, self.source, self.sequence, self.events))
+
+
+class SchemaMismatchError(ValueError):
+    """Data handed to a writer does not fit the stream's schema.
+
+    Parameters
+    ----------
+    stem : str
+        Output stream concerned.
+    field : str
+        Offending column name.
+    problem : str
+        What is wrong with it.
+    """
+
+    def __init__(self, stem: str, field: str, problem: str):
+        self.stem = stem
+        self.field = field
+        self.problem = problem
+        super().__init__(f"{stem}: column {field!r}: {problem}")
+
+
+class ArrowFileError(ValueError):
+    """A file cannot be read as an Arrow IPC file at all (no complete schema)."""
+
+    def __init__(self, path: str | Path, problem: str):
+        self.path = Path(path)
+        self.problem = problem
+        super().__init__(f"{path}: {problem}")
+
+
+class ArrowMetadataError(ValueError):
+    """The FlatBuffers metadata of an Arrow IPC message cannot be read (bad data, not ours)."""

@@ -9,7 +9,7 @@ __all__ = ["inspect_path"]
 
 
 def _summarise_file(path: Path, rows: int) -> dict:
-    from .io.sinks import read_arrow_file_report
+    from .files.reader import read_arrow_file_report
 
     table, info = read_arrow_file_report(path)
     meta = {k.decode(): v.decode() for k, v in (table.schema.metadata or {}).items()}

@@ -26,10 +26,10 @@ from .core.barycentre import TableSet
 from .core.pipeline import Pipeline, PipelineSettings
 from .core.timebase import NS_PER_DAY as DAY_NS
 from .core.timebase import NS_PER_S, Scale, to_tt
-from .errors import EventFileError
-from .io import schemas
-from .io.wire import WireError, batch_from_record
+from .errors import EventFileError, WireError
+from .files import schemas
 from .outputs import archive_table, rejects_table
+from .wire.decode import batch_from_record
 
 __all__ = ["TagSummary", "tag_file"]
 

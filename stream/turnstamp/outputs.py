@@ -13,7 +13,7 @@ import pyarrow as pa
 
 from .core.batch import EventBatch
 from .core.pipeline import FeedResult
-from .io import schemas
+from .files import schemas
 
 __all__ = ["archive_table", "rejects_table", "message_reject_table", "ledger_table",
            "rows_table", "clock_table"]

@@ -31,7 +31,9 @@ from pathlib import Path
 
 import pyarrow as pa
 
-from .io.sinks import atomic_write_json, read_arrow_file, recover_partial_files, stream_files
+from .files.durable import atomic_write_json
+from .files.reader import read_arrow_file, stream_files
+from .files.recovery import recover_partial_files
 
 __all__ = ["CHECKPOINT", "write_checkpoint", "read_checkpoint", "tail_batches", "drop_uncommitted",
            "resume", "count_ledger_row"]

@@ -20,8 +20,8 @@ def schema_files() -> dict[str, bytes]:
     from .config import ServiceConfig
     from .core.spin import SpinModel
     from .core.template import PulseTemplate
-    from .io import schemas
-    from .io.wire import MessageHeader
+    from .files import schemas
+    from .wire.message import MessageHeader
 
     def dump(obj) -> bytes:
         return (json.dumps(obj, indent=2, sort_keys=True, ensure_ascii=False) + "\n").encode()

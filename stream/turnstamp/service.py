@@ -36,11 +36,11 @@ from .core.barycentre import TableSet
 from .core.pipeline import Pipeline, PipelineSettings
 from .core.tagger import TargetTagger
 from .core.timebase import NS_PER_DAY, NS_PER_S, Scale, parse_instant, to_tt, unix_to_ns
-from .errors import InputError, RejectReason
-from .io import schemas
-from .io.files import load_template
-from .io.sinks import RotatingArrowWriter, atomic_write_json
-from .io.wire import SequenceKind, SequenceTracker, WireError, decode_message
+from .errors import InputError, RejectReason, WireError
+from .files import schemas
+from .files.durable import atomic_write_json
+from .files.inputs import load_template
+from .files.writer import RotatingArrowWriter
 from .outputs import (
     archive_table,
     clock_table,
@@ -49,6 +49,8 @@ from .outputs import (
     rejects_table,
     rows_table,
 )
+from .wire.decode import decode_message
+from .wire.sequence import SequenceKind, SequenceTracker
 
 __all__ = ["Service", "run_service"]
 

@@ -22,8 +22,8 @@ import zmq
 
 from .core.timebase import NS_PER_S, parse_instant, unix_to_ns
 from .demo import lantern_toml, site_toml
-from .io.sinks import read_stream
-from .io.wire import encode_message
+from .files.reader import read_stream
+from .wire.encode import encode_message
 
 __all__ = ["bench_service"]
 

@@ -17,7 +17,7 @@ from .config import BarycentreConfig, TargetConfig
 from .core.simulate import Fault, NightPlan, simulate_night
 from .core.timebase import NS_PER_S, Scale, parse_instant, to_tt, unix_to_ns
 from .demo import DEMO_SITE, data_file
-from .io.wire import EventPublisher
+from .wire.publisher import EventPublisher
 
 __all__ = ["run_simulator", "demo_night"]
 

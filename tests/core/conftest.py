@@ -3,7 +3,7 @@
 import pytest
 
 from turnstamp.core.earth import GroundSite
-from turnstamp.io.tables import bundled_leap_seconds, load_earth_orientation, open_ephemeris
+from turnstamp.files.bundled import bundled_leap_seconds, load_earth_orientation, open_ephemeris
 
 # An invented site for the tests (not a real observatory).
 TEST_SITE = GroundSite("test ridge", latitude_deg=36.78, longitude_deg=-104.23, height_m=2340.0)

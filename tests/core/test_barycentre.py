@@ -17,7 +17,7 @@ from turnstamp.core.barycentre import (
 from turnstamp.core.earth import GroundSite, OrbitTrack
 from turnstamp.core.flags import Quality
 from turnstamp.core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, parse_instant, to_tt
-from turnstamp.io.tables import ErfaBuiltinEphemeris, default_kernel_path
+from turnstamp.files.bundled import ErfaBuiltinEphemeris, default_kernel_path
 
 TARGET = SkyPosition(right_ascension_deg=123.456, declination_deg=23.45)
 NIGHT_UTC = parse_instant("2026-03-10T01:00:00")
@@ -283,11 +283,11 @@ def test_table_says_what_happens_outside_its_coverage(calculator, leaps):
 def test_missing_kernel_falls_back_loudly_with_the_stated_accuracy(monkeypatch, tmp_path):
     # Foundation issue: without the JPL package, erfa's built-in ephemeris only with a
     # loud warning and the stated accuracy; events carry the BUILTIN_EPHEMERIS flag.
-    from turnstamp.io import tables
+    from turnstamp.files import bundled
 
-    monkeypatch.setattr(tables, "default_kernel_path", lambda: tmp_path / "absent.bsp")
+    monkeypatch.setattr(bundled, "default_kernel_path", lambda: tmp_path / "absent.bsp")
     with pytest.warns(RuntimeWarning, match=r"falling back.*15 µs rms \(45 µs max\)"):
-        ephemeris = tables.open_ephemeris()
+        ephemeris = bundled.open_ephemeris()
     assert ephemeris.flags & Quality.BUILTIN_EPHEMERIS
     with pytest.raises(FileNotFoundError, match="absent.bsp"):
-        tables.open_ephemeris(tmp_path / "absent.bsp")  # a path the site named must exist
+        bundled.open_ephemeris(tmp_path / "absent.bsp")  # a path the site named must exist

@@ -12,7 +12,7 @@ from turnstamp.core.flags import Quality
 from turnstamp.core.spin import PhasePredictor, SpinModel, derived_quantities
 from turnstamp.core.timebase import NS_PER_DAY, NS_PER_S, mjd_to_ns
 from turnstamp.errors import ModelError
-from turnstamp.io.files import validate
+from turnstamp.files.inputs import validate
 
 THIRTY_YEARS_NS = int(30 * 365.25 * NS_PER_DAY)
 

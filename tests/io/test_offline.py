@@ -59,8 +59,8 @@ def test_archive_phase_agrees_with_the_astropy_route_to_its_accuracy(tmp_path, e
     from turnstamp.core.barycentre import BarycentreCalculator, SkyPosition
     from turnstamp.core.spin import PhasePredictor
     from turnstamp.core.timebase import NS_PER_S, format_instant
-    from turnstamp.io.files import load_spin_model
-    from turnstamp.io.tables import default_kernel_path
+    from turnstamp.files.bundled import default_kernel_path
+    from turnstamp.files.inputs import load_spin_model
 
     source = tmp_path / "events.arrow"
     write_events(source, events)

@@ -27,7 +27,10 @@ from turnstamp.core.pipeline import Pipeline, PipelineSettings
 from turnstamp.core.simulate import NightPlan, simulate_night
 from turnstamp.core.timebase import NS_PER_S, Scale, from_tt
 from turnstamp.demo import data_file
-from turnstamp.io import schemas, sinks
+from turnstamp.files import schemas
+from turnstamp.files.durable import atomic_write_json
+from turnstamp.files.reader import read_stream
+from turnstamp.files.writer import RotatingArrowWriter
 from turnstamp.report import build_report, report_main
 
 pytest.importorskip("matplotlib")
@@ -112,7 +115,7 @@ def night(tmp_path_factory, demo_env, lantern_table, night_start_tt):
                 "models": json.dumps({"lantern": list(target.tagger.model_ids)}),
                 "recipes_by_target": json.dumps({"lantern": [r.name for r in target.recipes]}),
                 "table": json.dumps(dict(lantern_table.provenance))}
-    writers = {stem: sinks.RotatingArrowWriter(folder, stem, schema, metadata=metadata)
+    writers = {stem: RotatingArrowWriter(folder, stem, schema, metadata=metadata)
                for stem, schema in schemas.OUTPUTS.items()}
     plan = NightPlan(start_tt_ns=night_start_tt, duration_s=NIGHT_SECONDS, pulsed_rate_hz=25,
                      background_rate_hz=2500, template=target.template, batch_seconds=5,
@@ -158,7 +161,7 @@ def night(tmp_path_factory, demo_env, lantern_table, night_start_tt):
     writers["clock"].write(outputs.clock_table(clock, computed))
     for writer in writers.values():
         writer.close()
-    sinks.atomic_write_json(folder / "status.json",
+    atomic_write_json(folder / "status.json",
                             _status(pipeline, demo_env, computed, 1000.0, clock, "stopped"))
     assert pipeline.counters.reconciles() and pipeline.counters.rejected == 4
     return {"folder": folder, "live_report": live_report, "pipeline": pipeline}
@@ -172,7 +175,7 @@ def report(night):
 
 
 def _archive_expectation(folder, recipe_bit, weighted):
-    archive = sinks.read_stream(folder, "archive")
+    archive = read_stream(folder, "archive")
     flags = archive["recipe_flags"].to_numpy()
     usable = (archive["quality_flags"].to_numpy() & Quality.OUTSIDE_MODEL_VALIDITY) == 0
     chosen = usable & ((flags >> recipe_bit) & 1 == 1)
@@ -218,7 +221,7 @@ def test_profile_and_phaseogram_sum_to_the_archive_weights_of_each_recipe(night,
 
 
 def test_significance_curves_end_at_the_last_significance_rows(night, report):
-    rows = sinks.read_stream(night["folder"], "significance").to_pylist()
+    rows = read_stream(night["folder"], "significance").to_pylist()
     curves = report["data"]["targets"]["lantern"]["significance"]
     for recipe in ("all", "hard"):
         assert set(curves[recipe]["windows"]) == {"cumulative", "1min", "2min"}
@@ -236,7 +239,7 @@ def test_significance_curves_end_at_the_last_significance_rows(night, report):
 
 
 def test_accounting_equals_the_ledger_and_reconciles(night, report):
-    ledger = sinks.read_stream(night["folder"], "ledger")
+    ledger = read_stream(night["folder"], "ledger")
     accounting = report["data"]["accounting"]
     total = accounting["total"]
     for column in ("events", "tagged", "filtered", "rejected"):
@@ -254,7 +257,7 @@ def test_accounting_equals_the_ledger_and_reconciles(night, report):
 
 def test_clock_check_and_provenance_are_shown(night, report):
     clock = report["data"]["targets"]["lantern"]["clock"]
-    last = sinks.read_stream(night["folder"], "clock").to_pylist()[-1]
+    last = read_stream(night["folder"], "clock").to_pylist()[-1]
     assert clock["status"] == last["status"] and clock["kind"] == last["kind"]
     frequency = json.loads(last["verdict_json"])["frequency_hz"]
     np.testing.assert_allclose(clock["offset_us"],
@@ -354,7 +357,7 @@ def test_without_matplotlib_the_report_says_how_to_install_it(tmp_path, monkeypa
 def test_numbers_that_do_not_add_up_get_a_red_note(tmp_path):
     # a folder with only a ledger and a status, as after a crash that lost the other streams
     folder = tmp_path / "out"
-    with sinks.RotatingArrowWriter(folder, "ledger", schemas.LEDGER) as ledger:
+    with RotatingArrowWriter(folder, "ledger", schemas.LEDGER) as ledger:
         ledger.write(outputs.ledger_table([
             {"received_utc_ns": 1, "source": "kestrel-builder-1", "sequence": 0,
              "outcome": "accepted", "events": 10, "tagged": 5, "filtered": 2, "rejected": 2,
@@ -362,7 +365,7 @@ def test_numbers_that_do_not_add_up_get_a_red_note(tmp_path):
             {"received_utc_ns": 2, "source": None, "sequence": None,
              "outcome": "undecodable", "events": 0, "tagged": 0, "filtered": 0, "rejected": 0,
              "missing_before": 0, "first_tt_ns": None, "last_tt_ns": None}]))
-    sinks.atomic_write_json(folder / "status.json", {"state": "running", "counters": {
+    atomic_write_json(folder / "status.json", {"state": "running", "counters": {
         "events_received": 10, "events_tagged": 5, "events_filtered": 2,
         "events_rejected": 3}})
     index = build_report(folder)

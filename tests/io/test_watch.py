@@ -13,7 +13,7 @@ import pytest
 import zmq
 
 from turnstamp.core.timebase import parse_instant
-from turnstamp.io.sinks import atomic_write_json
+from turnstamp.files.durable import atomic_write_json
 from turnstamp.watch import BLOCKS, profile_bars, render_status, run_watch, watch_main
 
 ESCAPE = re.compile(r"\x1b")

@@ -37,7 +37,8 @@ import uuid
 from pathlib import Path
 from typing import Any
 
-from ..io import sinks
+from ..errors import ArrowFileError
+from ..files.durable import atomic_write_text
 from .accounting import accounting_data, provenance_rows
 from .figuredata import (
     clock_data,
@@ -115,7 +116,7 @@ def _targets(night: NightFolder) -> dict[str, list[str]]:
 
 
 def _template_for(night: NightFolder, target: str):
-    from ..io.files import load_template
+    from ..files.inputs import load_template
 
     path = (config_targets(night.metadata).get(target) or {}).get("template")
     if not path:
@@ -165,7 +166,7 @@ def build_report(output_dir: Path, report_dir: Path | None = None, *,
         matplotlib is missing, or the folder holds no turnstamp output.
     """
     matplotlib, Figure = import_matplotlib()
-    from ..io.tables import bundled_leap_seconds
+    from ..files.bundled import bundled_leap_seconds
 
     output_dir = Path(output_dir)
     report_dir = Path(report_dir) if report_dir is not None else output_dir / "report"
@@ -274,7 +275,7 @@ def build_report(output_dir: Path, report_dir: Path | None = None, *,
 
     for figure in figures:
         _write_bytes(report_dir / figure["file"], figure["png"])
-    sinks.atomic_write_text(report_dir / "report-data.json",
+    atomic_write_text(report_dir / "report-data.json",
                             json.dumps(json_safe(data), indent=1) + "\n")
     generated = dt.datetime.now(dt.UTC).strftime("%Y-%m-%d %H:%M:%S UTC")
     span = ""
@@ -296,7 +297,7 @@ def build_report(output_dir: Path, report_dir: Path | None = None, *,
             provenance_html(provenance, night)]
     page = page_html(f"turnstamp night report: {output_dir.name}", header, body, refresh_seconds)
     index = report_dir / "index.html"
-    sinks.atomic_write_text(index, page)
+    atomic_write_text(index, page)
     return index
 
 
@@ -340,7 +341,7 @@ def report_main(args) -> int:
             try:
                 path = build_report(folder, report_dir, refresh_seconds=every)
                 print(f"{dt.datetime.now(dt.UTC):%H:%M:%S} UTC  wrote {path}", flush=True)
-            except (ReportError, sinks.ArrowFileError, OSError) as exc:
+            except (ReportError, ArrowFileError, OSError) as exc:
                 print(f"{dt.datetime.now(dt.UTC):%H:%M:%S} UTC  not yet: {exc}",
                       file=sys.stderr, flush=True)
             time.sleep(max(0.0, every - (time.monotonic() - started)))

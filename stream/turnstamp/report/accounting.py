@@ -132,7 +132,7 @@ def _table_text(text: str | None) -> str | None:
 
 
 def _model_lines(night: NightFolder, archive: ArchiveSummary, targets) -> list[str]:
-    from ..io.files import load_spin_model
+    from ..files.inputs import load_spin_model
 
     meta = night.metadata
     listed = json_or_none(meta.get("models"))

@@ -10,7 +10,9 @@ from typing import Any
 
 import pyarrow as pa
 
-from ..io import schemas, sinks
+from ..errors import ArrowFileError
+from ..files import schemas
+from ..files.reader import read_arrow_file, read_arrow_file_report, stream_files
 
 __all__ = [
     "ReportError",
@@ -56,7 +58,7 @@ def read_any(path: Path) -> pa.Table:
         import pyarrow.parquet as pq
 
         return pq.read_table(path)
-    return sinks.read_arrow_file(path)
+    return read_arrow_file(path)
 
 
 def _is_schema(table: pa.Table, schema: pa.Schema) -> bool:
@@ -92,7 +94,7 @@ def load_night(output_dir: Path) -> NightFolder:
     notes: list[str] = []
     newest: dict[str, dict[str, str]] = {}  # stem -> metadata of its newest file
     for stem in schemas.OUTPUTS:
-        paths = sinks.stream_files(folder, stem)
+        paths = stream_files(folder, stem)
         if not paths:
             tables[stem] = None
             continue
@@ -101,8 +103,8 @@ def load_night(output_dir: Path) -> NightFolder:
         pieces = []
         for path in paths:
             try:
-                table, info = sinks.read_arrow_file_report(path)
-            except (sinks.ArrowFileError, OSError) as exc:  # OSError: rotated away meanwhile
+                table, info = read_arrow_file_report(path)
+            except (ArrowFileError, OSError) as exc:  # OSError: rotated away meanwhile
                 notes.append(f"{path.name} skipped: {exc}")
                 continue
             partial += not info.complete
@@ -118,7 +120,7 @@ def load_night(output_dir: Path) -> NightFolder:
                 if pieces else schemas.OUTPUTS[stem].empty_table()
     for stem in reversed(schemas.OUTPUTS):  # the archive's provenance wins
         metadata.update(newest.get(stem, {}))
-    archive_files = sinks.stream_files(folder, "archive")
+    archive_files = stream_files(folder, "archive")
     mode = "service"
     if not archive_files and not any(files.get(s) for s in schemas.OUTPUTS):
         archive_files, extra_rejects = [], []
@@ -127,7 +129,7 @@ def load_night(output_dir: Path) -> NightFolder:
                 continue
             try:
                 table = read_any(path)
-            except (sinks.ArrowFileError, OSError, pa.ArrowException) as exc:
+            except (ArrowFileError, OSError, pa.ArrowException) as exc:
                 notes.append(f"{path.name} skipped: {exc}")
                 continue
             if _is_schema(table, schemas.ARCHIVE):

@@ -22,7 +22,8 @@ import pyarrow.compute as pc
 from ..core import stats
 from ..core.flags import Quality
 from ..core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, from_tt
-from ..io import sinks
+from ..errors import ArrowFileError
+from ..files.reader import read_arrow_file_report
 from .night import NightFolder, metadata_of, read_any, recipes_from_metadata
 
 __all__ = [
@@ -116,7 +117,7 @@ def _reduce_file(path: Path, weighted: dict[tuple[str, str], bool],
         return _CACHE[key]
     complete = path.suffix.lower() == ".parquet"
     if not complete:
-        table, info = sinks.read_arrow_file_report(path)
+        table, info = read_arrow_file_report(path)
         complete = info.complete
     else:
         table = read_any(path)
@@ -221,7 +222,7 @@ def _cell_ns(night: NightFolder) -> int:
         first, last = pc.min(ledger["first_tt_ns"]).as_py(), pc.max(ledger["last_tt_ns"]).as_py()
     if first is None or last is None:
         for path in night.archive_files:
-            with contextlib.suppress(sinks.ArrowFileError, OSError, pa.ArrowException):
+            with contextlib.suppress(ArrowFileError, OSError, pa.ArrowException):
                 bounds = pc.min_max(read_any(path)["site_tt_ns"]).as_py()
                 if bounds["min"] is not None:
                     first = bounds["min"] if first is None else min(first, bounds["min"])
@@ -240,7 +241,7 @@ def reduce_archive(night: NightFolder, weighted, bins, with_moments, recipes):
     for path in night.archive_files:
         try:
             part = _reduce_file(path, weighted, bins, with_moments, recipes, cell_ns)
-        except (sinks.ArrowFileError, OSError, pa.ArrowException) as exc:
+        except (ArrowFileError, OSError, pa.ArrowException) as exc:
             night.notes.append(f"{path.name} skipped: {exc}")
             continue
         for key, grid in part.grids.items():

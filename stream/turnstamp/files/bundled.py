@@ -2,7 +2,8 @@
 
 Leap seconds and Earth orientation come from ``astropy-iers-data``; the
 planetary ephemeris from the JPL kernel in ``skyfield-data``. Nothing here
-downloads: a site with newer tables on disk points to them by path.
+downloads: a site with newer tables on disk points to them by path, and
+:func:`ensure_offline` keeps astropy from ever reaching for the network.
 """
 
 from __future__ import annotations
@@ -17,9 +18,9 @@ import numpy as np
 from ..core.earth import EarthOrientation
 from ..core.flags import Quality
 from ..core.timebase import NS_PER_S, LeapSecondTable
-from .offline import ensure_offline
 
 __all__ = [
+    "ensure_offline",
     "bundled_leap_seconds",
     "load_earth_orientation",
     "default_kernel_path",
@@ -38,6 +39,26 @@ _CHAINS = {
     "sun": ((0, 10),),
     "jupiter": ((0, 5),),
 }
+
+_offline = False
+
+
+def ensure_offline() -> None:
+    """Configure astropy to use only the tables bundled in installed packages.
+
+    Both settings are needed: with ``auto_download`` off alone, astropy still
+    raises about 30 days after its bundled data were released (``auto_max_age``).
+    """
+    global _offline
+    if _offline:
+        return
+    from astropy.utils import data, iers
+
+    iers.conf.auto_download = False
+    iers.conf.auto_max_age = None
+    iers.conf.iers_degraded_accuracy = "warn"
+    data.conf.allow_internet = False
+    _offline = True
 
 
 def file_fingerprint(path: str | os.PathLike) -> str:

@@ -1,4 +1,4 @@
-"""Reading our own TOML/JSON files (spin models, templates) with exact decimals."""
+"""The input files: our own TOML/JSON spin-model and template files, with exact decimals."""
 
 from __future__ import annotations
 

@@ -5,7 +5,7 @@ from pathlib import Path
 
 import pyarrow as pa
 
-from turnstamp.io import schemas
+from turnstamp.files import schemas
 from turnstamp.schema_export import check_schemas
 
 SCHEMAS = Path(__file__).resolve().parents[2] / "schemas"

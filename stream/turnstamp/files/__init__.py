@@ -1,0 +1,13 @@
+"""The files turnstamp reads and writes.
+
+``schemas``         Arrow schemas of the event stream and of every output, with units
+``writer``          one output stream as rotating, crash-safe Arrow IPC files
+``conform``         batches fitted to a stream's schema; dictionaries grown by deltas
+``durable``         atomic small files, publishing without replacing, locks, fsync
+``reader``          a stream's files in write order; reading complete and partial files
+``message_scan``    walking a file's IPC messages: a cut tail versus corruption
+``arrow_metadata``  the two fields of IPC message metadata pyarrow does not expose
+``recovery``        finishing footer-less files at start-up
+``inputs``          TOML/JSON spin-model and template files with exact decimals
+``bundled``         leap seconds, Earth orientation, JPL kernel from installed packages
+"""

@@ -1,1 +1,0 @@
-"""The shell around the core: tables from disk, wire format, sinks."""
