@@ -18,67 +18,10 @@ import zmq
 from turnstamp.config import ServiceConfig
 from turnstamp.core.simulate import NightPlan, simulate_night
 from turnstamp.core.timebase import unix_to_ns
-from turnstamp.demo import data_file, lantern_toml, site_toml
 from turnstamp.io import schemas
 from turnstamp.io.sinks import read_stream, stream_files
 from turnstamp.io.wire import encode_message
 from turnstamp.service.loop import Service
-
-NIGHT = ("2026-12-02T01:00:00", "2026-12-02T12:00:00")
-RECIPES = """
-  [[targets.recipes]]
-  name = "all"
-
-  [[targets.recipes]]
-  name = "hard"
-  energy_min = "1 TeV"
-  use_weights = true
-"""
-
-
-ANY_PORT = "tcp://127.0.0.1:*"  # the service binds, and tells the port it got
-
-
-def config_text(out: Path, intake: str = ANY_PORT, extra: str = "", bind: bool = True) -> str:
-    return f"""
-[intake]
-endpoints = ["{intake}"]
-bind = {str(bind).lower()}
-max_message_bytes = 2000000
-max_events_per_message = 50000
-
-{site_toml()}
-[barycentre]
-cover_from = "{NIGHT[0]}"
-cover_until = "{NIGHT[1]}"
-
-{lantern_toml(model=str(out.parent / "lantern.toml"), recipes=RECIPES)}
-[statistics]
-windows_minutes = [1.0]
-update_every_s = 0.2
-
-[clock_check]
-chunk_seconds = 10.0
-every_s = 0.5
-
-[output]
-directory = "{out}"
-checkpoint_every_s = 0.2
-{extra}
-"""
-
-
-@pytest.fixture
-def world(tmp_path):
-    """Output folder, beside a copy of the model (edited by the reload test)."""
-    shutil.copy(data_file("lantern.toml"), tmp_path / "lantern.toml")
-    return tmp_path / "out"
-
-
-def write_config(out: Path, extra: str = "", intake: str = ANY_PORT, bind: bool = True) -> Path:
-    path = out.parent / "service.toml"
-    path.write_text(config_text(out, intake, extra, bind))
-    return path
 
 
 def load(path: Path) -> ServiceConfig:
@@ -141,9 +84,9 @@ def status(out: Path) -> dict:
     return json.loads((out / "status.json").read_text())
 
 
-def test_every_event_sent_is_accounted_for_in_the_files(world, demo_env, lantern,
-                                                        night_start_tt):
-    out = world
+def test_every_event_sent_is_accounted_for_in_the_files(tmp_path, service_config, demo_env,
+                                                        lantern, night_start_tt):
+    out = tmp_path / "out"
     batches = night_batches(demo_env, lantern, night_start_tt)
     messages = [frames_of(b) for b in batches]
     good = sum(len(b) for b in batches)
@@ -159,7 +102,7 @@ def test_every_event_sent_is_accounted_for_in_the_files(world, demo_env, lantern
                        {**bad.columns(), "time_ns": bad_times,
                         "event_id": np.arange(10**9, 10**9 + 20, dtype=np.uint64)}),
     ]
-    with Running(load(write_config(out))) as service:
+    with Running(load(service_config())) as service:
         endpoint = service.endpoints["intake"][0]
         assert not endpoint.endswith(":*")  # the port ZeroMQ chose, also in status.json
         assert status(out)["endpoints"]["intake"] == [endpoint]
@@ -192,10 +135,11 @@ def test_every_event_sent_is_accounted_for_in_the_files(world, demo_env, lantern
             assert table.schema.remove_metadata().equals(schema.remove_metadata()), stem
 
 
-def test_statistics_in_the_files_match_the_archive(world, demo_env, lantern, night_start_tt):
-    out = world
+def test_statistics_in_the_files_match_the_archive(tmp_path, service_config, demo_env, lantern,
+                                                  night_start_tt):
+    out = tmp_path / "out"
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=20)
-    with Running(load(write_config(out))) as service:
+    with Running(load(service_config())) as service:
         push(service.endpoints["intake"][0], [frames_of(b) for b in batches])
         total = sum(len(b) for b in batches)
         assert wait_for(lambda: status(out)["counters"].get("events_received") == total)
@@ -212,20 +156,20 @@ def test_statistics_in_the_files_match_the_archive(world, demo_env, lantern, nig
     assert clock["status"] in ("OK", "WARN", "FAIL") and clock["summary"]
 
 
-def test_kill_minus_nine_then_restart_loses_nothing_with_resend(world, demo_env, lantern,
+def test_kill_minus_nine_then_restart_loses_nothing_with_resend(tmp_path, service_config,
+                                                                demo_env, lantern,
                                                                 night_start_tt):
     # A kill -9 loses what the service had not committed (at most the message it was
     # processing, plus what ZeroMQ had queued in its memory). The recovery procedure:
     # restart, read the last committed sequence per source, resend after it.
     from turnstamp.io.wire import EventPublisher
 
-    out = world
+    out = tmp_path / "out"
     context = zmq.Context()
     # the event builder binds (and keeps its port over the restart); the service connects
-    publisher = EventPublisher(ANY_PORT, "kestrel-test", bind=True, context=context,
-                               keep_last=1000)
-    config = write_config(out, f'\n[control]\nendpoint = "{ANY_PORT}"\n',
-                          intake=publisher.last_endpoint, bind=False)
+    publisher = EventPublisher("tcp://127.0.0.1:*", "kestrel-test", bind=True,
+                               context=context, keep_last=1000)
+    config = service_config(control=True, intake=publisher.last_endpoint, bind=False)
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=60, seed=9)
     first, second = batches[:15], batches[15:]
     command = [sys.executable, "-m", "turnstamp", "run", str(config)]
@@ -318,12 +262,13 @@ def _duplicate_events(out: Path) -> int:
     return int(ledger["events"].to_numpy()[outcome == "duplicate_message"].sum())
 
 
-def test_models_reload_while_running_and_every_row_names_its_model(world, demo_env, lantern,
+def test_models_reload_while_running_and_every_row_names_its_model(tmp_path, service_config,
+                                                                   demo_env, lantern,
                                                                    night_start_tt):
-    out = world
-    config = load(write_config(out, f'\n[control]\nendpoint = "{ANY_PORT}"\n'))
+    out = tmp_path / "out"
+    config = load(service_config(control=True))
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=20)
-    model = out.parent / "lantern.toml"
+    model = tmp_path / "lantern.toml"
     with Running(config) as service:
         endpoint, control = service.endpoints["intake"][0], service.endpoints["control"]
         push(endpoint, [frames_of(b) for b in batches[:5]])
@@ -345,9 +290,8 @@ def test_models_reload_while_running_and_every_row_names_its_model(world, demo_e
     assert set(np.array(models)[sequences >= 5]) == {"lantern-2026b"}
 
 
-def test_live_updates_are_published(world, demo_env, lantern, night_start_tt):
-    out = world
-    config = load(write_config(out, f'publish_endpoint = "{ANY_PORT}"'))
+def test_live_updates_are_published(service_config, demo_env, lantern, night_start_tt):
+    config = load(service_config(publish=True))
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=10)
     context = zmq.Context()
     sub = context.socket(zmq.SUB)
@@ -373,25 +317,20 @@ def test_live_updates_are_published(world, demo_env, lantern, night_start_tt):
         context.term()
 
 
-def test_curve_keys_authenticate_and_encrypt_the_intake(world, demo_env, lantern,
-                                                        night_start_tt):
+def test_curve_keys_authenticate_and_encrypt_the_intake(tmp_path, service_config, demo_env,
+                                                        lantern, night_start_tt):
     import zmq.auth
 
-    out = world
-    keys = out.parent / "keys"
-    allowed = out.parent / "allowed"
+    out = tmp_path / "out"
+    keys = tmp_path / "keys"
+    allowed = tmp_path / "allowed"
     keys.mkdir()
     allowed.mkdir()
     server_public, server_secret = zmq.auth.create_certificates(keys, "server")
     client_public, client_secret = zmq.auth.create_certificates(keys, "client")
     _, stranger_secret = zmq.auth.create_certificates(keys, "stranger")
     shutil.copy(client_public, allowed)
-    extra = (f'\n[intake.curve]\nserver_secret_key_file = "{server_secret}"\n'
-             f'authorized_clients_directory = "{allowed}"\n')
-    text = config_text(out).replace("max_events_per_message = 50000",
-                                              "max_events_per_message = 50000" + extra)
-    path = out.parent / "service.toml"
-    path.write_text(text)
+    path = service_config(curve=(server_secret, allowed))
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=6)
 
     def send(endpoint, secret_file, batch_list):
@@ -409,8 +348,8 @@ def test_curve_keys_authenticate_and_encrypt_the_intake(world, demo_env, lantern
 
     with Running(load(path)) as service:
         endpoint = service.endpoints["intake"][0]
-        send(endpoint, out.parent / "keys" / "stranger.key_secret", batches[:1])
-        send(endpoint, out.parent / "keys" / "client.key_secret", batches[1:])
+        send(endpoint, keys / "stranger.key_secret", batches[:1])
+        send(endpoint, keys / "client.key_secret", batches[1:])
         expected = sum(len(b) for b in batches[1:])
         assert wait_for(lambda: status(out)["counters"].get("events_received") == expected)
         time.sleep(0.5)
@@ -418,15 +357,16 @@ def test_curve_keys_authenticate_and_encrypt_the_intake(world, demo_env, lantern
     del stranger_secret, client_secret, server_secret
 
 
-def test_live_view_draws_the_running_service(world, demo_env, lantern, night_start_tt):
+def test_live_view_draws_the_running_service(tmp_path, service_config, demo_env, lantern,
+                                             night_start_tt):
     # Issue acceptance: the live view driven against a running service on loopback,
     # its rendered output read as a string (no terminal needed).
     import io
 
     from turnstamp.watch import run_watch
 
-    out = world
-    config = load(write_config(out, f'publish_endpoint = "{ANY_PORT}"'))
+    out = tmp_path / "out"
+    config = load(service_config(publish=True))
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=20)
     total = sum(len(b) for b in batches)
     with Running(config) as service:
@@ -446,15 +386,16 @@ def test_live_view_draws_the_running_service(world, demo_env, lantern, night_sta
     assert "lantern" in folder_screen.getvalue()
 
 
-def test_reject_counts_by_reason_survive_a_restart(world, demo_env, lantern, night_start_tt):
-    out = world
+def test_reject_counts_by_reason_survive_a_restart(tmp_path, service_config, demo_env,
+                                                   lantern, night_start_tt):
+    out = tmp_path / "out"
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=6)
     bad = batches[0].take(np.arange(20))
     bad_times = bad.time_ns.copy()
     bad_times[:5] = np.iinfo(np.int64).min  # null times
     messages = [encode_message("kestrel-test", 0, "UTC", {**bad.columns(), "time_ns": bad_times}),
                 [b"not json", b"\x00\x01"]]
-    config = load(write_config(out))
+    config = load(service_config())
     with Running(config) as service:
         push(service.endpoints["intake"][0], messages)
         assert wait_for(lambda: status(out)["counters"].get("messages_received") == 2)
