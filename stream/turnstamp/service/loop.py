@@ -41,7 +41,7 @@ from ..io import schemas
 from ..io.sinks import atomic_write_text
 from . import control
 from .checkpoint import checkpoint_state, write_checkpoint
-from .intake import Admission, Refused, Sockets, drain, open_sockets
+from .intake import Admission, Admitted, Refused, Sockets, drain, open_sockets
 from .ledger import Ledger
 from .outputs import archive_tables, clock_table, rejects_table, rows_table
 from .recovery import resume
@@ -152,16 +152,19 @@ class Service:
         if isinstance(admitted, Refused):
             self.ledger.commit(admitted.record, rejects=[admitted.row])
         else:
-            batch = admitted.batch
-            result = self.pipeline.feed(batch)
-            rejects = admitted.notes + ([rejects_table(batch, result, received_ns,
-                                                       admitted.message_bytes)]
-                                        if result.rejected else [])
-            record = MessageRecord.accepted(received_ns, batch.source, batch.sequence, result,
-                                            admitted.missing)
-            self.ledger.commit(record, archive_tables(batch, result, self.pipeline.targets),
-                               rejects)
+            self._feed(admitted, received_ns)
         self.activity.counted(self.clock(), self.counters.events_received)
+
+    def _feed(self, admitted: Admitted, received_ns: int) -> None:
+        """Feed an admitted message; commit its rows and its ledger record."""
+        batch = admitted.batch
+        result = self.pipeline.feed(batch)
+        rejects = list(admitted.notes)
+        if result.rejected:
+            rejects.append(rejects_table(batch, result, received_ns, admitted.message_bytes))
+        record = MessageRecord.accepted(received_ns, batch.source, batch.sequence, result,
+                                        admitted.missing)
+        self.ledger.commit(record, archive_tables(batch, result, self.pipeline.targets), rejects)
 
     # -- periodic work ------------------------------------------------------------
     def _periodic(self, now: float) -> None:
