@@ -76,3 +76,76 @@ def lantern(lantern_table):
                               min_score=0.5, use_weights=True)]))
     setup.tagger.table = lantern_table
     return setup
+
+
+# -- a service on the demo night (tests/test_service.py, tests/service/) ------------------
+
+ANY_PORT = "tcp://127.0.0.1:*"  # the service binds a free port and reports it
+SERVICE_RECIPES = """
+  [[targets.recipes]]
+  name = "all"
+
+  [[targets.recipes]]
+  name = "hard"
+  energy_min = "1 TeV"
+  use_weights = true
+"""
+
+
+@pytest.fixture
+def service_config(tmp_path):
+    """Writes the configuration of a service on the demo night; returns its path.
+
+    Call it as ``service_config(control=True, publish=True, intake=..., bind=...,
+    curve=(server_secret_key_file, authorized_clients_directory))``, every argument
+    optional. Outputs go to ``tmp_path / "out"``; the spin model is a copy in
+    ``tmp_path`` (a test may edit it). Endpoints bind any free loopback port: the
+    service reports the ports it got (``Service.endpoints``, ``status.json``), so no
+    port is ever guessed.
+    """
+    import shutil
+
+    from turnstamp.demo import data_file, lantern_toml, site_toml
+
+    model = tmp_path / "lantern.toml"
+    shutil.copy(data_file("lantern.toml"), model)
+
+    def write(control=False, publish=False, intake=ANY_PORT, bind=True, curve=None):
+        sections = []
+        if curve is not None:
+            sections.append(f'[intake.curve]\nserver_secret_key_file = "{curve[0]}"\n'
+                            f'authorized_clients_directory = "{curve[1]}"\n')
+        if control:
+            sections.append(f'[control]\nendpoint = "{ANY_PORT}"\n')
+        text = f"""
+[intake]
+endpoints = ["{intake}"]
+bind = {str(bind).lower()}
+max_message_bytes = 2000000
+max_events_per_message = 50000
+
+{site_toml()}
+[barycentre]
+cover_from = "2026-12-02T01:00:00"
+cover_until = "2026-12-02T12:00:00"
+
+{lantern_toml(model=str(model), recipes=SERVICE_RECIPES)}
+[statistics]
+windows_minutes = [1.0]
+update_every_s = 0.2
+
+[clock_check]
+chunk_seconds = 10.0
+every_s = 0.5
+
+[output]
+directory = "{tmp_path / 'out'}"
+checkpoint_every_s = 0.2
+{f'publish_endpoint = "{ANY_PORT}"' if publish else ""}
+
+{"".join(sections)}"""
+        path = tmp_path / "service.toml"
+        path.write_text(text)
+        return path
+
+    return write

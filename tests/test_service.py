@@ -17,68 +17,11 @@ import zmq
 
 from turnstamp.config import ServiceConfig
 from turnstamp.core.simulate import NightPlan, simulate_night
-from turnstamp.demo import data_file, lantern_toml, site_toml
+from turnstamp.core.timebase import unix_to_ns
 from turnstamp.files import schemas
 from turnstamp.files.reader import read_stream, stream_files
-from turnstamp.service import Service
+from turnstamp.service.loop import Service
 from turnstamp.wire.encode import encode_message
-
-NIGHT = ("2026-12-02T01:00:00", "2026-12-02T12:00:00")
-RECIPES = """
-  [[targets.recipes]]
-  name = "all"
-
-  [[targets.recipes]]
-  name = "hard"
-  energy_min = "1 TeV"
-  use_weights = true
-"""
-
-
-def config_text(out: Path, intake: str, extra: str = "") -> str:
-    return f"""
-[intake]
-endpoints = ["{intake}"]
-max_message_bytes = 2000000
-max_events_per_message = 50000
-
-{site_toml()}
-[barycentre]
-cover_from = "{NIGHT[0]}"
-cover_until = "{NIGHT[1]}"
-
-{lantern_toml(model=str(out.parent / "lantern.toml"), recipes=RECIPES)}
-[statistics]
-windows_minutes = [1.0]
-update_every_s = 0.2
-
-[clock_check]
-chunk_seconds = 10.0
-every_s = 0.5
-
-[output]
-directory = "{out}"
-checkpoint_every_s = 0.2
-{extra}
-"""
-
-
-@pytest.fixture
-def world(tmp_path):
-    """Output folder, a copy of the model (edited by the reload test), free endpoints."""
-    shutil.copy(data_file("lantern.toml"), tmp_path / "lantern.toml")
-    context = zmq.Context()
-    probe = context.socket(zmq.PULL)
-    port = probe.bind_to_random_port("tcp://127.0.0.1")
-    probe.close(linger=0)
-    context.term()
-    return tmp_path / "out", f"tcp://127.0.0.1:{port}"
-
-
-def write_config(out: Path, intake: str, extra: str = "") -> Path:
-    path = out.parent / "service.toml"
-    path.write_text(config_text(out, intake, extra))
-    return path
 
 
 def load(path: Path) -> ServiceConfig:
@@ -97,9 +40,7 @@ class Running:
     def __enter__(self):
         self.thread.start()
         status = Path(self.service.config.output.directory) / "status.json"
-        deadline = time.time() + 60
-        while not status.exists() and time.time() < deadline:
-            time.sleep(0.05)
+        assert wait_for(lambda: self.service.endpoints and status.exists(), 60)
         return self.service
 
     def __exit__(self, *exc):
@@ -143,9 +84,9 @@ def status(out: Path) -> dict:
     return json.loads((out / "status.json").read_text())
 
 
-def test_every_event_sent_is_accounted_for_in_the_files(world, demo_env, lantern,
-                                                        night_start_tt):
-    out, endpoint = world
+def test_every_event_sent_is_accounted_for_in_the_files(tmp_path, service_config, demo_env,
+                                                        lantern, night_start_tt):
+    out = tmp_path / "out"
     batches = night_batches(demo_env, lantern, night_start_tt)
     messages = [frames_of(b) for b in batches]
     good = sum(len(b) for b in batches)
@@ -161,7 +102,10 @@ def test_every_event_sent_is_accounted_for_in_the_files(world, demo_env, lantern
                        {**bad.columns(), "time_ns": bad_times,
                         "event_id": np.arange(10**9, 10**9 + 20, dtype=np.uint64)}),
     ]
-    with Running(load(write_config(out, endpoint))):
+    with Running(load(service_config())) as service:
+        endpoint = service.endpoints["intake"][0]
+        assert not endpoint.endswith(":*")  # the port ZeroMQ chose, also in status.json
+        assert status(out)["endpoints"]["intake"] == [endpoint]
         push(endpoint, messages)
         expected = good + len(batches[1]) + 20
         assert wait_for(lambda: status(out)["counters"].get("events_received") == expected)
@@ -191,11 +135,12 @@ def test_every_event_sent_is_accounted_for_in_the_files(world, demo_env, lantern
             assert table.schema.remove_metadata().equals(schema.remove_metadata()), stem
 
 
-def test_statistics_in_the_files_match_the_archive(world, demo_env, lantern, night_start_tt):
-    out, endpoint = world
+def test_statistics_in_the_files_match_the_archive(tmp_path, service_config, demo_env, lantern,
+                                                  night_start_tt):
+    out = tmp_path / "out"
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=20)
-    with Running(load(write_config(out, endpoint))):
-        push(endpoint, [frames_of(b) for b in batches])
+    with Running(load(service_config())) as service:
+        push(service.endpoints["intake"][0], [frames_of(b) for b in batches])
         total = sum(len(b) for b in batches)
         assert wait_for(lambda: status(out)["counters"].get("events_received") == total)
     archive = read_stream(out, "archive")
@@ -211,26 +156,25 @@ def test_statistics_in_the_files_match_the_archive(world, demo_env, lantern, nig
     assert clock["status"] in ("OK", "WARN", "FAIL") and clock["summary"]
 
 
-def test_kill_minus_nine_then_restart_loses_nothing_with_resend(world, demo_env, lantern,
+def test_kill_minus_nine_then_restart_loses_nothing_with_resend(tmp_path, service_config,
+                                                                demo_env, lantern,
                                                                 night_start_tt):
     # A kill -9 loses what the service had not committed (at most the message it was
     # processing, plus what ZeroMQ had queued in its memory). The recovery procedure:
     # restart, read the last committed sequence per source, resend after it.
     from turnstamp.wire.publisher import EventPublisher
 
-    out, endpoint = world
-    port = int(endpoint.rsplit(":", 1)[1])
-    control = f"tcp://127.0.0.1:{port + 1}"
-    config = write_config(out, endpoint, f'\n[control]\nendpoint = "{control}"\n')
+    out = tmp_path / "out"
+    context = zmq.Context()
+    # the event builder binds (and keeps its port over the restart); the service connects
+    publisher = EventPublisher("tcp://127.0.0.1:*", "kestrel-test", bind=True,
+                               context=context, keep_last=1000)
+    config = service_config(control=True, intake=publisher.last_endpoint, bind=False)
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=60, seed=9)
     first, second = batches[:15], batches[15:]
-    environment = {**os.environ, "PYTHONUNBUFFERED": "1"}
     command = [sys.executable, "-m", "turnstamp", "run", str(config)]
-    context = zmq.Context()
-    publisher = EventPublisher(endpoint, "kestrel-test", context=context, keep_last=1000)
 
-    service = subprocess.Popen(command, env=environment, stderr=subprocess.DEVNULL)
-    assert wait_for(lambda: (out / "status.json").exists(), 60)
+    service, _ = _start_process(command, out)
     for batch in first:
         publisher.send(**batch.columns())
     assert wait_for(lambda: status(out)["counters"].get("messages_received", 0) >= 3)
@@ -239,15 +183,9 @@ def test_kill_minus_nine_then_restart_loses_nothing_with_resend(world, demo_env,
     for stem in schemas.OUTPUTS:  # the open files read up to their last complete batch
         read_stream(out, stem)
 
-    service = subprocess.Popen(command, env=environment, stderr=subprocess.DEVNULL)
+    service, started = _start_process(command, out)
     try:
-        assert wait_for(lambda: status(out)["state"] == "running", 60)
-        request = context.socket(zmq.REQ)
-        request.setsockopt(zmq.RCVTIMEO, 30000)
-        request.connect(control)
-        request.send(b"status")
-        resumed = json.loads(request.recv())
-        request.close(linger=0)
+        resumed = _ask(context, started["endpoints"]["control"], b"status")
         highest = resumed["sources"].get("kestrel-test", {}).get("highest_sequence")
         counters = resumed["counters"]
         assert counters["events_received"] == (counters["events_tagged"]
@@ -264,12 +202,45 @@ def test_kill_minus_nine_then_restart_loses_nothing_with_resend(world, demo_env,
         assert service.wait(timeout=60) == 0
         publisher.close(linger_ms=0)
         context.term()
+    _check_complete_after_restart(out, total)
+
+
+def _start_process(command: list[str], out: Path) -> tuple[subprocess.Popen, dict]:
+    """``turnstamp run`` in its own process; returns it and its first status (a status
+    file left by an earlier run is older than this start)."""
+    since = unix_to_ns(time.time())
+    environment = {**os.environ, "PYTHONUNBUFFERED": "1"}
+    process = subprocess.Popen(command, env=environment, stderr=subprocess.DEVNULL)
+    fresh = {}
+
+    def started() -> bool:
+        try:
+            fresh.update(status(out))
+        except FileNotFoundError:
+            return False
+        return fresh["state"] == "running" and fresh["computed_at_utc_ns"] >= since
+
+    assert wait_for(started, 60)
+    return process, fresh
+
+
+def _ask(context: zmq.Context, endpoint: str, command: bytes) -> dict:
+    """One command on the service's control socket; its JSON reply."""
+    with context.socket(zmq.REQ) as request:
+        request.setsockopt(zmq.RCVTIMEO, 30000)
+        request.setsockopt(zmq.LINGER, 0)
+        request.connect(endpoint)
+        request.send(command)
+        return json.loads(request.recv())
+
+
+def _check_complete_after_restart(out: Path, total: int) -> None:
     counters = status(out)["counters"]
     assert counters["events_received"] == (counters["events_tagged"]
                                            + counters["events_filtered"]
                                            + counters["events_rejected"])
-    # nothing lost, nothing archived twice: duplicates (ZeroMQ's own redelivery after the
-    # restart overlapping the resend) are refused and counted
+    # nothing lost, nothing archived twice: duplicates (a resend overlapping what
+    # arrived before the kill was noticed) are refused and counted
     assert counters["events_received"] - _duplicate_events(out) == total
     archive = read_stream(out, "archive")
     assert archive.num_rows == counters["events_tagged"]
@@ -291,23 +262,20 @@ def _duplicate_events(out: Path) -> int:
     return int(ledger["events"].to_numpy()[outcome == "duplicate_message"].sum())
 
 
-def test_models_reload_while_running_and_every_row_names_its_model(world, demo_env, lantern,
+def test_models_reload_while_running_and_every_row_names_its_model(tmp_path, service_config,
+                                                                   demo_env, lantern,
                                                                    night_start_tt):
-    out, endpoint = world
-    control = endpoint.rsplit(":", 1)[0] + ":" + str(int(endpoint.rsplit(":", 1)[1]) + 1)
-    config = load(write_config(out, endpoint, f'\n[control]\nendpoint = "{control}"\n'))
+    out = tmp_path / "out"
+    config = load(service_config(control=True))
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=20)
-    model = out.parent / "lantern.toml"
-    with Running(config):
+    model = tmp_path / "lantern.toml"
+    with Running(config) as service:
+        endpoint, control = service.endpoints["intake"][0], service.endpoints["control"]
         push(endpoint, [frames_of(b) for b in batches[:5]])
         assert wait_for(lambda: status(out)["counters"].get("messages_received") == 5)
         model.write_text(model.read_text().replace('"lantern-2026a"', '"lantern-2026b"'))
         context = zmq.Context()
-        with context.socket(zmq.REQ) as request:
-            request.setsockopt(zmq.RCVTIMEO, 20000)
-            request.connect(control)
-            request.send(b"reload")
-            reply = json.loads(request.recv())
+        reply = _ask(context, control, b"reload")
         context.term()
         assert any("lantern-2026b" in change for change in reply["changes"])
         push(endpoint, [frames_of(b) for b in batches[5:]])
@@ -322,20 +290,17 @@ def test_models_reload_while_running_and_every_row_names_its_model(world, demo_e
     assert set(np.array(models)[sequences >= 5]) == {"lantern-2026b"}
 
 
-def test_live_updates_are_published(world, demo_env, lantern, night_start_tt):
-    out, endpoint = world
-    port = int(endpoint.rsplit(":", 1)[1]) + 2
-    config = load(write_config(out, endpoint,
-                               f'publish_endpoint = "tcp://127.0.0.1:{port}"'))
+def test_live_updates_are_published(service_config, demo_env, lantern, night_start_tt):
+    config = load(service_config(publish=True))
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=10)
     context = zmq.Context()
     sub = context.socket(zmq.SUB)
     sub.setsockopt(zmq.SUBSCRIBE, b"status")
     sub.setsockopt(zmq.RCVTIMEO, 10000)
-    sub.connect(f"tcp://127.0.0.1:{port}")
     try:
-        with Running(config):
-            push(endpoint, [frames_of(b) for b in batches])
+        with Running(config) as service:
+            sub.connect(service.endpoints["publish"])
+            push(service.endpoints["intake"][0], [frames_of(b) for b in batches])
             total = sum(len(b) for b in batches)
             message = None
             deadline = time.time() + 30
@@ -352,28 +317,23 @@ def test_live_updates_are_published(world, demo_env, lantern, night_start_tt):
         context.term()
 
 
-def test_curve_keys_authenticate_and_encrypt_the_intake(world, demo_env, lantern,
-                                                        night_start_tt):
+def test_curve_keys_authenticate_and_encrypt_the_intake(tmp_path, service_config, demo_env,
+                                                        lantern, night_start_tt):
     import zmq.auth
 
-    out, endpoint = world
-    keys = out.parent / "keys"
-    allowed = out.parent / "allowed"
+    out = tmp_path / "out"
+    keys = tmp_path / "keys"
+    allowed = tmp_path / "allowed"
     keys.mkdir()
     allowed.mkdir()
     server_public, server_secret = zmq.auth.create_certificates(keys, "server")
     client_public, client_secret = zmq.auth.create_certificates(keys, "client")
     _, stranger_secret = zmq.auth.create_certificates(keys, "stranger")
     shutil.copy(client_public, allowed)
-    extra = (f'\n[intake.curve]\nserver_secret_key_file = "{server_secret}"\n'
-             f'authorized_clients_directory = "{allowed}"\n')
-    text = config_text(out, endpoint).replace("max_events_per_message = 50000",
-                                              "max_events_per_message = 50000" + extra)
-    path = out.parent / "service.toml"
-    path.write_text(text)
+    path = service_config(curve=(server_secret, allowed))
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=6)
 
-    def send(secret_file, batch_list):
+    def send(endpoint, secret_file, batch_list):
         context = zmq.Context()
         public, secret = zmq.auth.load_certificate(str(secret_file))
         server_key, _ = zmq.auth.load_certificate(str(server_public))
@@ -386,9 +346,10 @@ def test_curve_keys_authenticate_and_encrypt_the_intake(world, demo_env, lantern
                 sock.send_multipart(frames_of(b))
         context.term()
 
-    with Running(load(path)):
-        send(out.parent / "keys" / "stranger.key_secret", batches[:1])
-        send(out.parent / "keys" / "client.key_secret", batches[1:])
+    with Running(load(path)) as service:
+        endpoint = service.endpoints["intake"][0]
+        send(endpoint, keys / "stranger.key_secret", batches[:1])
+        send(endpoint, keys / "client.key_secret", batches[1:])
         expected = sum(len(b) for b in batches[1:])
         assert wait_for(lambda: status(out)["counters"].get("events_received") == expected)
         time.sleep(0.5)
@@ -396,24 +357,24 @@ def test_curve_keys_authenticate_and_encrypt_the_intake(world, demo_env, lantern
     del stranger_secret, client_secret, server_secret
 
 
-def test_live_view_draws_the_running_service(world, demo_env, lantern, night_start_tt):
+def test_live_view_draws_the_running_service(tmp_path, service_config, demo_env, lantern,
+                                             night_start_tt):
     # Issue acceptance: the live view driven against a running service on loopback,
     # its rendered output read as a string (no terminal needed).
     import io
 
     from turnstamp.watch import run_watch
 
-    out, endpoint = world
-    port = int(endpoint.rsplit(":", 1)[1]) + 3
-    config = load(write_config(out, endpoint, f'publish_endpoint = "tcp://127.0.0.1:{port}"'))
+    out = tmp_path / "out"
+    config = load(service_config(publish=True))
     batches = night_batches(demo_env, lantern, night_start_tt, seconds=20)
     total = sum(len(b) for b in batches)
-    with Running(config):
-        push(endpoint, [frames_of(b) for b in batches])
+    with Running(config) as service:
+        push(service.endpoints["intake"][0], [frames_of(b) for b in batches])
         assert wait_for(lambda: status(out)["counters"].get("events_received") == total)
         time.sleep(1.5)  # the next published status carries the final counts
         screen = io.StringIO()
-        assert run_watch(endpoint=f"tcp://127.0.0.1:{port}", once=True, out=screen,
+        assert run_watch(endpoint=service.endpoints["publish"], once=True, out=screen,
                          color=False, timeout_s=20) == 0
         folder_screen = io.StringIO()
         assert run_watch(folder=str(out), once=True, out=folder_screen, color=False) == 0
@@ -423,3 +384,23 @@ def test_live_view_draws_the_running_service(world, demo_env, lantern, night_sta
     assert "\x1b[" not in text  # plain text when not a terminal
     assert "clock" in text.lower()
     assert "lantern" in folder_screen.getvalue()
+
+
+def test_reject_counts_by_reason_survive_a_restart(tmp_path, service_config, demo_env,
+                                                   lantern, night_start_tt):
+    out = tmp_path / "out"
+    batches = night_batches(demo_env, lantern, night_start_tt, seconds=6)
+    bad = batches[0].take(np.arange(20))
+    bad_times = bad.time_ns.copy()
+    bad_times[:5] = np.iinfo(np.int64).min  # null times
+    messages = [encode_message("kestrel-test", 0, "UTC", {**bad.columns(), "time_ns": bad_times}),
+                [b"not json", b"\x00\x01"]]
+    config = load(service_config())
+    with Running(config) as service:
+        push(service.endpoints["intake"][0], messages)
+        assert wait_for(lambda: status(out)["counters"].get("messages_received") == 2)
+    before = status(out)["rejected_by_reason"]
+    assert before == {"bad_time": 5, "malformed_message": 1}
+    with Running(config):
+        assert wait_for(lambda: status(out)["state"] == "running")
+    assert status(out)["rejected_by_reason"] == before

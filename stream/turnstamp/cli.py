@@ -106,7 +106,7 @@ def cmd_table(args) -> int:
 def cmd_stack(args) -> int:
     from .core import stats
     from .core.pipeline import stack_states
-    from .recovery import read_checkpoint
+    from .service.checkpoint import read_checkpoint
 
     states, labels = [], []
     for folder in args.folders:
@@ -170,7 +170,7 @@ def cmd_schemas(args) -> int:
 
 
 def cmd_run(args) -> int:
-    from .service import run_service
+    from .service.loop import run_service
 
     return run_service(Path(args.config))
 

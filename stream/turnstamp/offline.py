@@ -28,7 +28,7 @@ from .core.timebase import NS_PER_DAY as DAY_NS
 from .core.timebase import NS_PER_S, Scale, to_tt
 from .errors import EventFileError, WireError
 from .files import schemas
-from .outputs import archive_table, rejects_table
+from .service.outputs import archive_table, rejects_table
 from .wire.decode import batch_from_record
 
 __all__ = ["TagSummary", "tag_file"]
@@ -129,7 +129,8 @@ def tag_file(events: Path, output: Path, target: TargetConfig, env: Environment,
         _feed_file(events, pipeline, target.name, scale, archive_out, rejects_out, progress)
     counters = pipeline.counters
     assert counters.reconciles(), vars(counters)
-    return TagSummary(counters.received, counters.tagged, counters.filtered, counters.rejected,
+    return TagSummary(counters.events_received, counters.events_tagged,
+                      counters.events_filtered, counters.events_rejected,
                       output, rejects_path if rejects_out.rows else None,
                       time.perf_counter() - started, pipeline.significance())
 
@@ -150,8 +151,8 @@ def _feed_file(events, pipeline, name, scale, archive_out, rejects_out, progress
             rejects_out.write(rejects_table(batch, result, received_utc_ns=0, message_bytes=0))
         if progress is not None:
             counters = pipeline.counters
-            print(f"\r{counters.received:,} events read, {counters.tagged:,} tagged",
-                  end="", file=progress, flush=True)
+            print(f"\r{counters.events_received:,} events read, "
+                  f"{counters.events_tagged:,} tagged", end="", file=progress, flush=True)
     if progress is not None:
         print(file=progress)
 

@@ -16,7 +16,14 @@ from turnstamp.core.barycentre import (
 )
 from turnstamp.core.earth import GroundSite, OrbitTrack
 from turnstamp.core.flags import Quality
-from turnstamp.core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, parse_instant, to_tt
+from turnstamp.core.timebase import (
+    NS_PER_DAY,
+    NS_PER_S,
+    Scale,
+    format_instant,
+    parse_instant,
+    to_tt,
+)
 from turnstamp.files.bundled import ErfaBuiltinEphemeris, default_kernel_path
 
 TARGET = SkyPosition(right_ascension_deg=123.456, declination_deg=23.45)

@@ -21,7 +21,6 @@ import numpy as np
 import pyarrow as pa
 import pytest
 
-from turnstamp import outputs
 from turnstamp.core.flags import Quality
 from turnstamp.core.pipeline import Pipeline, PipelineSettings
 from turnstamp.core.simulate import NightPlan, simulate_night
@@ -32,6 +31,7 @@ from turnstamp.files.durable import atomic_write_json
 from turnstamp.files.reader import read_stream
 from turnstamp.files.writer import RotatingArrowWriter
 from turnstamp.report import build_report, report_main
+from turnstamp.service import outputs
 
 pytest.importorskip("matplotlib")
 
@@ -82,13 +82,13 @@ def _status(pipeline, env, computed_at, rates, clock, state):
     return {"format": "turnstamp.status", "version": 1, "computed_at_utc_ns": computed_at,
             "started_utc": "2026-12-02T02:00:00", "state": state,
             "counters": {"messages_received": 0, "messages_rejected": 0,
-                         "events_received": counters.received,
-                         "events_tagged": counters.tagged,
-                         "events_filtered": counters.filtered,
-                         "events_rejected": counters.rejected,
+                         "events_received": counters.events_received,
+                         "events_tagged": counters.events_tagged,
+                         "events_filtered": counters.events_filtered,
+                         "events_rejected": counters.events_rejected,
                          "missing_messages": 0, "duplicate_messages": 0},
-            "rejected_by_reason": dict(counters.by_reason), "events_per_s": rates,
-            "sources": {"simulator": {"messages": 0, "events": counters.received,
+            "rejected_by_reason": dict(counters.rejected_by_reason), "events_per_s": rates,
+            "sources": {"simulator": {"messages": 0, "events": counters.events_received,
                                       "last_sequence": 0, "missing": 0}},
             "targets": targets, "trials": pipeline.trials,
             "warnings": ["simulated night for the report tests"]}
@@ -163,7 +163,7 @@ def night(tmp_path_factory, demo_env, lantern_table, night_start_tt):
         writer.close()
     atomic_write_json(folder / "status.json",
                             _status(pipeline, demo_env, computed, 1000.0, clock, "stopped"))
-    assert pipeline.counters.reconciles() and pipeline.counters.rejected == 4
+    assert pipeline.counters.reconciles() and pipeline.counters.events_rejected == 4
     return {"folder": folder, "live_report": live_report, "pipeline": pipeline}
 
 
@@ -251,7 +251,7 @@ def test_accounting_equals_the_ledger_and_reconciles(night, report):
     assert accounting["reconciles"] and all(c["ok"] for c in accounting["checks"])
     assert len(accounting["checks"]) >= 4
     counters = night["pipeline"].counters
-    assert total["events"] == counters.received
+    assert total["events"] == counters.events_received
     assert f"{total['events']:,}" in report["html"] and "MISMATCH" not in report["html"]
 
 

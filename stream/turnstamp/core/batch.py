@@ -1,6 +1,6 @@
 """The unit of work: one batch of detected events from one source, as columns.
 
-Decoding (``turnstamp.io.wire``) validates structure and types at the edge and
+Decoding (``turnstamp.wire.decode``) validates structure and types at the edge and
 yields an ``EventBatch``; the core then checks values (``check_values``).
 Missing values arrive as sentinels: ``MISSING_TIME`` in ``time_ns``,
 ``MISSING_ID`` in ``event_id``, NaN in float columns.

@@ -21,12 +21,13 @@ a night whole or split at any points gives identical outputs.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from ..errors import InputError, RejectReason
 from . import clockcheck, profile, stats
+from .accounting import Counters, FeedResult
 from .barycentre import SkyPosition
 from .batch import VALUE_CHECKS, EventBatch, check_values
 from .flags import Quality
@@ -34,7 +35,7 @@ from .tagger import CHUNK, TargetTagger
 from .template import PulseTemplate, fit_offset
 from .timebase import NS_PER_S, ClockCorrection, LeapSecondTable, to_tt
 
-__all__ = ["Recipe", "TargetSetup", "PipelineSettings", "FeedResult", "Pipeline", "stack_states"]
+__all__ = ["Recipe", "TargetSetup", "PipelineSettings", "Pipeline", "stack_states"]
 
 
 @dataclass(frozen=True)
@@ -112,45 +113,6 @@ class PipelineSettings:
     tolerance_us: float | None = None
     reservoir_events: int = 1 << 18
     """Recent clock-recipe events kept for refolding under alternative hypotheses."""
-
-
-@dataclass
-class FeedResult:
-    """What one batch produced."""
-
-    archive: dict[str, dict[str, np.ndarray]]  # target -> archive columns
-    rejected_index: np.ndarray  # rows of the input batch refused
-    rejected_reason: list[str]
-    rejected_detail: list[str]
-    events: int = 0
-    tagged: int = 0
-    filtered: int = 0
-    first_tt_ns: int | None = None
-    last_tt_ns: int | None = None
-
-    @property
-    def rejected(self) -> int:
-        return int(self.rejected_index.size)
-
-
-@dataclass
-class Counters:
-    received: int = 0
-    tagged: int = 0
-    filtered: int = 0
-    rejected: int = 0
-    by_reason: dict[str, int] = field(default_factory=dict)
-
-    def add(self, result: FeedResult) -> None:
-        self.received += result.events
-        self.tagged += result.tagged
-        self.filtered += result.filtered
-        self.rejected += result.rejected
-        for reason in result.rejected_reason:
-            self.by_reason[reason] = self.by_reason.get(reason, 0) + 1
-
-    def reconciles(self) -> bool:
-        return self.received == self.tagged + self.filtered + self.rejected
 
 
 class Reservoir:
@@ -283,7 +245,7 @@ class Pipeline:
             filtered=int((valid & ~tagged).sum()),
             first_tt_ns=int(valid_tt.min()) if valid_tt.size else None,
             last_tt_ns=int(valid_tt.max()) if valid_tt.size else None)
-        self.counters.add(result)
+        self.counters.add_feed(result)
         return result
 
     def _tag_target(self, target, batch, valid, tt_ns, extra, flags):
@@ -523,7 +485,7 @@ class Pipeline:
     def to_state(self) -> dict:
         return {
             "version": 1,
-            "counters": vars(self.counters).copy(),
+            "counters": self.counters.to_state(),
             "targets": {
                 name: {"phase_reference": self.phase_reference[name],
                        "recipes": [t.recipes[i].name for i in range(len(t.recipes))],
@@ -535,7 +497,7 @@ class Pipeline:
         """Resume from ``to_state()``. Targets whose phase reference or recipes changed
         start afresh; returns a note for each."""
         notes = []
-        self.counters = Counters(**state["counters"])
+        self.counters = Counters.from_state(state["counters"])
         for name, saved in state.get("targets", {}).items():
             target = self.targets.get(name)
             if target is None:

@@ -7,16 +7,18 @@ model, reason) are dictionary-encoded from their indices.
 from __future__ import annotations
 
 import json
+from collections.abc import Mapping
 
 import numpy as np
 import pyarrow as pa
 
-from .core.batch import EventBatch
-from .core.pipeline import FeedResult
-from .files import schemas
+from ..core.accounting import FeedResult
+from ..core.batch import EventBatch
+from ..core.pipeline import TargetSetup
+from ..files import schemas
 
-__all__ = ["archive_table", "rejects_table", "message_reject_table", "ledger_table",
-           "rows_table", "clock_table"]
+__all__ = ["archive_table", "archive_tables", "rejects_table", "message_reject_table",
+           "ledger_table", "rows_table", "clock_table"]
 
 
 _ZEROS = pa.array(np.zeros(1 << 16, np.int32))
@@ -57,6 +59,14 @@ def archive_table(columns: dict, source: str, sequence: int, target: str,
         "quality_flags": columns["quality_flags"],
     }
     return pa.Table.from_pydict(arrays, schema=schemas.ARCHIVE)
+
+
+def archive_tables(batch: EventBatch, result: FeedResult,
+                   targets: Mapping[str, TargetSetup]) -> list[pa.Table]:
+    """Archive rows of every target that tagged events of ``batch`` (one table each)."""
+    return [archive_table(columns, batch.source, batch.sequence, name,
+                          targets[name].tagger.model_ids)
+            for name, columns in result.archive.items()]
 
 
 def rejects_table(batch: EventBatch, result: FeedResult, received_utc_ns: int,

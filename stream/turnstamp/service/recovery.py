@@ -11,12 +11,16 @@ statistics, the sequence tracker, the counters and each stream's position
 
 Resuming (``resume``):
 
-1. finish any footer-less file (``sinks.recover_partial_files``);
-2. restore the checkpoint;
+1. finish any footer-less file (``files.recovery.recover_partial_files``);
+2. restore the checkpoint (``checkpoint``);
 3. replay the ledger rows written after it into the counters and the sequence
-   tracker; replay the archive rows written after it into the statistics;
+   tracker, the rejects rows of those messages into the counts by reason, and
+   their archive rows into the statistics;
 4. drop archive and rejects batches of a message that has no ledger row: the
    message in flight when the process died. That, and only that, is lost.
+
+The commit order and how its rows are counted live in ``ledger``; this module
+only reads the files back in that light.
 
 Counters therefore reconcile exactly after a ``kill -9``, and the statistics equal
 those of an uninterrupted run over the messages that were committed.
@@ -24,37 +28,27 @@ those of an uninterrupted run over the messages that were committed.
 
 from __future__ import annotations
 
-import json
 import logging
 import os
 from pathlib import Path
+from typing import NamedTuple
 
 import pyarrow as pa
 
-from .files.durable import atomic_write_json
-from .files.reader import read_arrow_file, stream_files
-from .files.recovery import recover_partial_files
+from ..core.accounting import ACCEPTED, Counters, MessageRecord
+from ..core.pipeline import Pipeline
+from ..files.reader import read_arrow_file, stream_files
+from ..files.recovery import recover_partial_files
+from ..wire.sequence import SequenceTracker
+from .checkpoint import read_checkpoint
+from .ledger import count_rejects, message_keys
 
-__all__ = ["CHECKPOINT", "write_checkpoint", "read_checkpoint", "tail_batches", "drop_uncommitted",
-           "resume", "count_ledger_row"]
+__all__ = ["tail_batches", "drop_uncommitted", "Resumed", "resume"]
 
 log = logging.getLogger(__name__)
-CHECKPOINT = "checkpoint.json"
 
-
-def write_checkpoint(directory: Path, state: dict) -> None:
-    atomic_write_json(directory / CHECKPOINT, state)
-
-
-def read_checkpoint(directory: Path) -> dict | None:
-    path = directory / CHECKPOINT
-    if not path.exists():
-        return None
-    try:
-        return json.loads(path.read_text())
-    except (OSError, json.JSONDecodeError) as exc:
-        log.warning("checkpoint %s unreadable (%s): starting statistics afresh", path, exc)
-        return None
+Key = tuple[str | None, int | None]
+"""A message: (source, sequence); (None, None) when its header was unreadable."""
 
 
 def tail_batches(directory: Path, stem: str, position) -> list[tuple[Path, int, pa.RecordBatch]]:
@@ -75,13 +69,7 @@ def tail_batches(directory: Path, stem: str, position) -> list[tuple[Path, int, 
     return out
 
 
-def _keys(batch: pa.RecordBatch) -> set[tuple[str | None, int | None]]:
-    sources = batch.column("source").to_pylist()
-    sequences = batch.column("sequence").to_pylist()
-    return set(zip(sources, sequences, strict=True))
-
-
-def drop_uncommitted(directory: Path, stem: str, position, committed: set) -> int:
+def drop_uncommitted(directory: Path, stem: str, position, committed: set[Key]) -> int:
     """Remove batches after ``position`` whose (source, sequence) has no ledger row.
 
     Only the tail of the last file(s) can hold such batches; files are rewritten
@@ -90,7 +78,7 @@ def drop_uncommitted(directory: Path, stem: str, position, committed: set) -> in
     dropped = 0
     by_file: dict[Path, list[int]] = {}
     for path, index, batch in tail_batches(directory, stem, position):
-        keys = _keys(batch)
+        keys = message_keys(batch)
         if keys and not keys <= committed:
             by_file.setdefault(path, []).append(index)
             dropped += batch.num_rows
@@ -108,28 +96,68 @@ def drop_uncommitted(directory: Path, stem: str, position, committed: set) -> in
     return dropped
 
 
-def resume(directory: Path, pipeline, tracker, counters: dict):
-    """Bring a fresh pipeline, sequence tracker and counters to the state of the last
-    run. Returns (the tracker to use, notes for the log and status)."""
+class Resumed(NamedTuple):
+    """The state of the last run, brought back by ``resume``."""
+
+    tracker: SequenceTracker
+    counters: Counters
+    notes: list[str]
+    """What recovery did, for the log and the status."""
+
+
+def resume(directory: Path, pipeline: Pipeline) -> Resumed:
+    """Bring a fresh pipeline to the state of the last run in ``directory`` (which
+    ``pipeline.restore`` and replay update in place); return that run's sequence
+    tracker and counters."""
     notes = [f"{r.path.name}: {r.action}, {r.rows_kept} rows kept"
              for r in recover_partial_files(directory) if r.action != "left_alone"]
     checkpoint = read_checkpoint(directory)
-    positions = {}
+    tracker, counters, positions = SequenceTracker(), Counters(), {}
     if checkpoint is not None:
         notes += pipeline.restore(checkpoint["pipeline"])
-        tracker = type(tracker).from_state(checkpoint["tracker"])
-        counters.update(checkpoint["counters"])
+        tracker = SequenceTracker.from_state(checkpoint["tracker"])
+        counters = Counters.from_state(checkpoint["counters"])
         positions = checkpoint["positions"]
+    committed = _replay_ledger(directory, positions.get("ledger"), tracker, counters)
+    _replay_rejects(directory, positions.get("rejects"), committed, counters)
+    replayed = _replay_archive(directory, positions.get("archive"), committed, pipeline)
+    for stem in ("archive", "rejects"):
+        dropped = drop_uncommitted(directory, stem, positions.get(stem), committed)
+        if dropped:
+            notes.append(f"{stem}: {dropped} rows of the message in flight at the crash dropped")
+    if checkpoint is not None or committed:
+        notes.append(f"resumed: {len(committed)} messages after the checkpoint replayed "
+                     f"({replayed} archive rows)")
+    return Resumed(tracker, counters, notes)
+
+
+def _replay_ledger(directory: Path, position, tracker: SequenceTracker,
+                   counters: Counters) -> set[Key]:
+    """Count the ledger rows after ``position``; returns the messages they commit."""
     committed = set()
-    for _, _, batch in tail_batches(directory, "ledger", positions.get("ledger")):
+    for _, _, batch in tail_batches(directory, "ledger", position):
         for row in batch.to_pylist():
-            committed.add((row["source"], row["sequence"]))
-            count_ledger_row(counters, row)
-            if row["outcome"] == "accepted":
-                tracker.observe(row["source"], row["sequence"])
+            record = MessageRecord.from_row(row)
+            committed.add((record.source, record.sequence))
+            counters.add_message(record)
+            if record.outcome == ACCEPTED:
+                tracker.observe(record.source, record.sequence)
+    return committed
+
+
+def _replay_rejects(directory: Path, position, committed: set[Key], counters: Counters) -> None:
+    """Count by reason the rejects rows after ``position`` of committed messages."""
+    for _, _, batch in tail_batches(directory, "rejects", position):
+        if message_keys(batch) <= committed:
+            count_rejects(counters, batch)
+
+
+def _replay_archive(directory: Path, position, committed: set[Key], pipeline: Pipeline) -> int:
+    """Fold the archive rows after ``position`` of committed messages into the
+    statistics; returns the rows replayed."""
     replayed = 0
-    for _, _, batch in tail_batches(directory, "archive", positions.get("archive")):
-        if not _keys(batch) <= committed:
+    for _, _, batch in tail_batches(directory, "archive", position):
+        if not message_keys(batch) <= committed:
             continue
         table = pa.Table.from_batches([batch])
         name = table.column("target")[0].as_py()
@@ -142,24 +170,4 @@ def resume(directory: Path, pipeline, tracker, counters: dict):
                             col["recipe_flags"], col["quality_flags"],
                             col["barycentric_correction_s"])
         replayed += batch.num_rows
-    for stem in ("archive", "rejects"):
-        dropped = drop_uncommitted(directory, stem, positions.get(stem), committed)
-        if dropped:
-            notes.append(f"{stem}: {dropped} rows of the message in flight at the crash dropped")
-    if checkpoint is not None or committed:
-        notes.append(f"resumed: {len(committed)} messages after the checkpoint replayed "
-                     f"({replayed} archive rows)")
-    return tracker, notes
-
-
-def count_ledger_row(counters: dict, row: dict) -> None:
-    """Add one ledger row to the service counters (see ``service.Counters``)."""
-    counters["messages_received"] = counters.get("messages_received", 0) + 1
-    if row["outcome"] != "accepted":
-        counters["messages_rejected"] = counters.get("messages_rejected", 0) + 1
-    for key in ("events", "tagged", "filtered", "rejected"):
-        name = "events_received" if key == "events" else f"events_{key}"
-        counters[name] = counters.get(name, 0) + int(row[key])
-    counters["missing_messages"] = counters.get("missing_messages", 0) + int(row["missing_before"])
-    if row["outcome"] == "duplicate_message":
-        counters["duplicate_messages"] = counters.get("duplicate_messages", 0) + 1
+    return replayed

@@ -1,0 +1,257 @@
+"""``turnstamp run``: the live service.
+
+Theory of operation
+-------------------
+One thread runs the loop: poll the sockets with a timeout, drain the intake
+(receive -> decode -> ``Pipeline.feed`` -> write), then run what is due (statistics
+updates, clock check, status, checkpoint, model reload, table extension). A
+second thread only builds barycentre tables ahead of need; the loop installs them.
+SIGINT/SIGTERM set a flag: the loop drains what ZeroMQ already holds, writes the
+last updates and a checkpoint, closes every file, then the sockets.
+
+Every message ends as exactly one ledger row (accepted, or the reason it was
+refused) after its archive and rejects rows (``ledger``); see ``recovery`` for why
+this makes a ``kill -9`` lose at most the message in flight. The rooms:
+``intake`` (sockets, decoding, sequence checks), ``ledger`` (the commit),
+``checkpoint`` and ``recovery``, ``control`` (the REQ/REP commands), ``status``,
+``upkeep`` (reloads, tables), ``startup`` (configuration to pipeline and writers),
+``outputs`` (results to Arrow tables).
+"""
+
+from __future__ import annotations
+
+import gc
+import logging
+import signal
+import threading
+import time
+from collections import deque
+from collections.abc import Callable
+from contextlib import ExitStack
+from pathlib import Path
+
+import zmq
+
+from .. import __version__
+from ..assemble import Environment, TableCache
+from ..config import ServiceConfig, load_config
+from ..core.accounting import MessageRecord
+from ..core.timebase import unix_to_ns
+from ..files import schemas
+from ..files.durable import atomic_write_text
+from . import control
+from .checkpoint import checkpoint_state, write_checkpoint
+from .intake import Admission, Admitted, Refused, Sockets, drain, open_sockets
+from .ledger import Ledger
+from .outputs import archive_tables, clock_table, rejects_table, rows_table
+from .recovery import resume
+from .startup import build_pipeline, open_writers, output_metadata
+from .status import STATUS_FILE, Activity, json_text, status_document
+from .upkeep import Upkeep, file_times
+
+__all__ = ["Service", "run_service"]
+
+log = logging.getLogger(__name__)
+
+DRAIN_MESSAGES = 64  # messages handled per poll wake-up before periodic work gets a turn
+DRAIN_AT_STOP_S = 2.0  # at stop, what ZeroMQ already holds is taken for this long at most
+POLL_MS = 100
+RELOAD_CHECK_S = 2.0
+STATUS_EVERY_S = 1.0
+COLLECT_EVERY_S = 60.0  # full garbage collection: keeps resident memory flat over a night
+
+
+class Service:
+    """The service: set up (and resumed from its output folder) on construction;
+    ``run()`` serves until ``stop()`` and returns 0.
+
+    Parameters
+    ----------
+    config : ServiceConfig
+        The whole configuration.
+    clock : callable, optional
+        Wall clock, s since 1970 (UTC); ``time.time`` by default.
+    stop : threading.Event, optional
+        The stop flag, when it must exist before the service (signal handlers
+        installed before a long set-up); ``stop()`` sets it.
+    """
+
+    def __init__(self, config: ServiceConfig, clock: Callable[[], float] = time.time,
+                 stop: threading.Event | None = None):
+        self.config = config
+        self.clock = clock
+        self.out = Path(config.output.directory)
+        self.out.mkdir(parents=True, exist_ok=True)
+        self.started_utc = time.strftime("%Y-%m-%dT%H:%M:%S", time.gmtime(clock()))
+        self.notes: deque[str] = deque(maxlen=100)
+        self.warnings: deque[str] = deque(maxlen=100)
+        self.env = Environment.from_site(config.site)
+        self.tables = TableCache(self.out / "tables", self.env, config.barycentre)
+        mtimes = file_times(config.targets)
+        self.pipeline = build_pipeline(config, self.env, self.tables, clock())
+        self.upkeep = Upkeep(config.targets, self.pipeline, self.tables, self.warnings, mtimes)
+        tracker, self.counters, notes = resume(self.out, self.pipeline)
+        self._note(notes)
+        self.admission = Admission(config.intake, tracker)
+        self.writers = open_writers(self.out, config, self._metadata(), clock)
+        self.ledger = Ledger(self.writers["archive"], self.writers["rejects"],
+                             self.writers["ledger"], self.counters)
+        self.activity = Activity()
+        self.significance: list[dict] = []  # the latest statistics, for the status
+        self.profiles: list[dict] = []
+        self.clock_verdicts: list[tuple] = []
+        self.sockets: Sockets | None = None  # while running
+        self.endpoints: dict = {}  # as bound: "intake" (a list), "publish", "control"
+        self.commands = control.commands(self)
+        self._stop = stop if stop is not None else threading.Event()
+        self._due: dict[str, float] = {}
+        self._schedule = (
+            ("update", config.statistics.update_every_s, self._update),
+            ("clock", config.clock_check.every_s, self._clock_check),
+            ("status", STATUS_EVERY_S, self._status_and_rotation),
+            ("checkpoint", config.output.checkpoint_every_s, lambda now: self.checkpoint()),
+            ("reload", RELOAD_CHECK_S, self._upkeep),
+            ("collect", COLLECT_EVERY_S, lambda now: gc.collect()),  # frees per-message cycles
+        )
+
+    # -- the loop -----------------------------------------------------------------
+    def stop(self, *_) -> None:
+        """Ask the loop to finish (a signal handler)."""
+        self._stop.set()
+
+    def run(self) -> int:
+        """Serve until stopped; then drain, write the last updates and a checkpoint,
+        close every file, then the sockets."""
+        with zmq.Context() as context, ExitStack() as stack:
+            stack.callback(self.upkeep.close)
+            self.sockets = sockets = open_sockets(context, self.config, stack)
+            self.endpoints = sockets.endpoints
+            log.info("turnstamp %s listening on %s", __version__, self.endpoints["intake"])
+            self._write_status("running")
+            poller = zmq.Poller()
+            for socket in (sockets.intake, sockets.control):
+                if socket is not None:
+                    poller.register(socket, zmq.POLLIN)
+            while not self._stop.is_set():
+                ready = dict(poller.poll(POLL_MS))
+                if sockets.intake in ready:
+                    drain(sockets.intake, self.handle, self.clock, limit=DRAIN_MESSAGES)
+                if sockets.control is not None and sockets.control in ready:
+                    control.answer(sockets.control, self.commands)
+                self._periodic(self.clock())
+            drain(sockets.intake, self.handle, self.clock,
+                  deadline=self.clock() + DRAIN_AT_STOP_S)
+            self._finish()
+        return 0
+
+    def handle(self, frames, received: float) -> None:
+        """One message: decode, check its sequence, feed, write; one ledger row."""
+        received_ns = unix_to_ns(received)
+        self.activity.arrived(received)
+        admitted = self.admission.admit(frames, received_ns)
+        if isinstance(admitted, Refused):
+            self.ledger.commit(admitted.record, rejects=[admitted.row])
+        else:
+            self._feed(admitted, received_ns)
+        self.activity.counted(self.clock(), self.counters.events_received)
+
+    def _feed(self, admitted: Admitted, received_ns: int) -> None:
+        """Feed an admitted message; commit its rows and its ledger record."""
+        batch = admitted.batch
+        result = self.pipeline.feed(batch)
+        rejects = list(admitted.notes)
+        if result.rejected:
+            rejects.append(rejects_table(batch, result, received_ns, admitted.message_bytes))
+        record = MessageRecord.accepted(received_ns, batch.source, batch.sequence, result,
+                                        admitted.missing)
+        self.ledger.commit(record, archive_tables(batch, result, self.pipeline.targets), rejects)
+
+    # -- periodic work ------------------------------------------------------------
+    def _periodic(self, now: float) -> None:
+        for name, period, action in self._schedule:
+            if now >= self._due.get(name, 0.0):
+                self._due[name] = now + period
+                action(now)
+
+    def _update(self, now: float) -> None:
+        """Significance and profiles rows; the significance is published too."""
+        computed = unix_to_ns(now)
+        self.significance = self.pipeline.significance()
+        self.writers["significance"].write(rows_table(self.significance, schemas.SIGNIFICANCE,
+                                                      computed_at_utc_ns=computed))
+        self.profiles = self.pipeline.profiles()
+        self.writers["profiles"].write(rows_table(self.profiles, schemas.PROFILES,
+                                                  computed_at_utc_ns=computed))
+        self.activity.updated(self.clock())
+        self._publish(b"significance", json_text(self.significance, indent=None))
+
+    def _clock_check(self, now: float) -> None:
+        self.clock_verdicts = self.pipeline.clock_check()
+        if self.clock_verdicts:
+            self.writers["clock"].write(clock_table(self.clock_verdicts, unix_to_ns(now)))
+
+    def _status_and_rotation(self, now: float) -> None:
+        self._write_status("running")
+        for writer in self.writers.values():
+            writer.check_rotation()
+
+    def _upkeep(self, now: float) -> None:
+        self.reload()
+        self.upkeep.extend_tables()
+
+    def checkpoint(self) -> None:
+        """Write a checkpoint of the state between two messages (``checkpoint``)."""
+        write_checkpoint(self.out, checkpoint_state(self.pipeline, self.admission.tracker,
+                                                    self.counters, self.writers))
+
+    def reload(self, force: bool = False) -> list[str]:
+        """Reload models and templates whose files changed (all, with ``force``);
+        returns the changes. A bad file keeps the old model and becomes a warning."""
+        changes, refused = self.upkeep.reload_changed(force)
+        for line in (*refused, *changes):
+            log.warning("%s", line)
+        if changes:
+            metadata = self._metadata()
+            for writer in self.writers.values():
+                writer.set_metadata(metadata)
+        return changes
+
+    # -- status and shutdown ------------------------------------------------------
+    def status(self, state: str) -> dict:
+        """The status document (``status``)."""
+        return status_document(self, state)
+
+    def _write_status(self, state: str) -> None:
+        text = json_text(self.status(state))
+        atomic_write_text(self.out / STATUS_FILE, text)
+        self._publish(b"status", text)
+
+    def _publish(self, topic: bytes, text: str) -> None:
+        if self.sockets is not None and self.sockets.publisher is not None:
+            self.sockets.publisher.send_multipart([topic, text.encode()])
+
+    def _metadata(self) -> dict[str, str]:
+        return output_metadata(self.config, self.env, self.pipeline)
+
+    def _note(self, notes: list[str]) -> None:
+        self.notes.extend(notes)
+        for note in notes:
+            log.warning("%s", note)
+
+    def _finish(self) -> None:
+        now = self.clock()
+        self._update(now)
+        self._clock_check(now)
+        self.checkpoint()
+        for writer in self.writers.values():
+            writer.close()
+        self._write_status("stopped")
+        log.info("stopped: %s", self.counters.totals())
+
+
+def run_service(config_path: Path) -> int:
+    """Load the configuration, install signal handlers, run until stopped."""
+    stop = threading.Event()
+    for number in (signal.SIGINT, signal.SIGTERM):
+        signal.signal(number, lambda *_: stop.set())
+    return Service(load_config(config_path), stop=stop).run()

@@ -1,0 +1,42 @@
+"""Admitting messages: decoding and sequence checks at the edge, counts per source."""
+
+import numpy as np
+
+from turnstamp.config import IntakeConfig
+from turnstamp.service.intake import Admission, Admitted, Refused
+from turnstamp.wire.encode import encode_message
+from turnstamp.wire.sequence import SequenceTracker
+
+
+def _frames(sequence: int, events: int = 3) -> list[bytes]:
+    return encode_message("builder-1", sequence, "UTC", {
+        "event_id": np.arange(events, dtype=np.uint64),
+        "time_ns": np.full(events, 850_000_000 * 10**9, np.int64)})
+
+
+def test_a_gap_is_noted_a_repeat_refused_and_sources_counted():
+    admission = Admission(IntakeConfig(), SequenceTracker())
+    first = admission.admit(_frames(0), 11)
+    assert isinstance(first, Admitted) and first.missing == 0 and first.notes == []
+    later = admission.admit(_frames(3), 12)
+    assert isinstance(later, Admitted) and later.missing == 2
+    (note,) = later.notes
+    assert note.to_pylist()[0] | {"detail": ""} == {
+        "received_utc_ns": 12, "source": "builder-1", "sequence": 3, "event_id": None,
+        "time_ns": None, "reason": "sequence_gap", "detail": "", "events": 0,
+        "message_bytes": 0}
+    again = admission.admit(_frames(3), 13)
+    assert isinstance(again, Refused)
+    assert again.record.outcome == "duplicate_message" and again.record.rejected == 3
+    assert again.row.to_pylist()[0]["events"] == 3
+    assert admission.source_status() == {"builder-1": {
+        "messages": 3, "events": 9, "last_sequence": 3, "missing": 2, "highest_sequence": 3}}
+
+
+def test_an_undecodable_message_is_refused_whole_without_a_source():
+    admission = Admission(IntakeConfig(), SequenceTracker())
+    refused = admission.admit([b"not json", b"\x00\x01"], 5)
+    assert isinstance(refused, Refused)
+    assert refused.record.source is None and refused.record.outcome == "malformed_message"
+    assert refused.row.to_pylist()[0]["message_bytes"] == 10
+    assert admission.source_status() == {}
