@@ -195,7 +195,7 @@ def cmd_inspect(args) -> int:
 
 
 def cmd_report(args) -> int:
-    from .report import report_main
+    from .views.report import report_main
 
     return report_main(args)
 

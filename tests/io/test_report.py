@@ -28,7 +28,7 @@ from turnstamp.core.simulate import NightPlan, simulate_night
 from turnstamp.core.timebase import NS_PER_S, Scale, from_tt
 from turnstamp.demo import data_file
 from turnstamp.io import schemas, sinks
-from turnstamp.report import build_report, report_main
+from turnstamp.views.report import build_report, report_main
 
 pytest.importorskip("matplotlib")
 
@@ -289,7 +289,7 @@ def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, t
     def interrupt(seconds):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr("turnstamp.report.time.sleep", interrupt)
+    monkeypatch.setattr("turnstamp.views.report.time.sleep", interrupt)
     args = argparse.Namespace(output_dir=str(night["folder"]), to=str(tmp_path / "every"),
                               every=30.0)
     assert report_main(args) == 0

@@ -9,8 +9,8 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from ..core import stats
-from ..core.timebase import NS_PER_S
+from ...core import stats
+from ...core.timebase import NS_PER_S
 from .night import json_or_none
 from .timegrid import GRID_ORIGIN_NS, Grid, UtcHours
 
@@ -76,7 +76,7 @@ def _fourier_curve(cos_moments, sin_moments, harmonics: int, sum_w: float, bins:
 def profile_data(target, recipe, row: dict | None, grid: Grid | None, template,
                  weighted: bool) -> dict | None:
     """Profile of one recipe: the last profiles row, or else the archive."""
-    from ..core import profile as profile_math
+    from ...core import profile as profile_math
 
     if row is not None and row.get("counts"):
         counts = np.asarray(row["counts"], float)

@@ -37,7 +37,7 @@ import uuid
 from pathlib import Path
 from typing import Any
 
-from ..io import sinks
+from ...io import sinks
 from .accounting import accounting_data, provenance_rows
 from .figuredata import (
     clock_data,
@@ -115,7 +115,7 @@ def _targets(night: NightFolder) -> dict[str, list[str]]:
 
 
 def _template_for(night: NightFolder, target: str):
-    from ..io.files import load_template
+    from ...io.files import load_template
 
     path = (config_targets(night.metadata).get(target) or {}).get("template")
     if not path:
@@ -165,7 +165,7 @@ def build_report(output_dir: Path, report_dir: Path | None = None, *,
         matplotlib is missing, or the folder holds no turnstamp output.
     """
     matplotlib, Figure = import_matplotlib()
-    from ..io.tables import bundled_leap_seconds
+    from ...io.tables import bundled_leap_seconds
 
     output_dir = Path(output_dir)
     report_dir = Path(report_dir) if report_dir is not None else output_dir / "report"

@@ -10,7 +10,7 @@ from typing import Any
 
 import pyarrow as pa
 
-from ..io import schemas, sinks
+from ...io import schemas, sinks
 
 __all__ = [
     "ReportError",

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import contextlib
 
-from .. import __version__
+from ... import __version__
 from .night import NightFolder, config_targets, json_or_none
 from .timegrid import ArchiveSummary
 
@@ -132,7 +132,7 @@ def _table_text(text: str | None) -> str | None:
 
 
 def _model_lines(night: NightFolder, archive: ArchiveSummary, targets) -> list[str]:
-    from ..io.files import load_spin_model
+    from ...io.files import load_spin_model
 
     meta = night.metadata
     listed = json_or_none(meta.get("models"))

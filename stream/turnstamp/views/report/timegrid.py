@@ -19,10 +19,10 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from ..core import stats
-from ..core.flags import Quality
-from ..core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, from_tt
-from ..io import sinks
+from ...core import stats
+from ...core.flags import Quality
+from ...core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, from_tt
+from ...io import sinks
 from .night import NightFolder, metadata_of, read_any, recipes_from_metadata
 
 __all__ = [

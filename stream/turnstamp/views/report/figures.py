@@ -7,7 +7,7 @@ import io
 
 import numpy as np
 
-from ..core.timebase import NS_PER_S
+from ...core.timebase import NS_PER_S
 from .night import ReportError
 from .timegrid import UtcHours
 
