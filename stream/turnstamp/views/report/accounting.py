@@ -15,92 +15,141 @@ __all__ = ["accounting_data", "provenance_rows"]
 _LEDGER_COLUMNS = ("events", "tagged", "filtered", "rejected", "missing_before")
 
 
+_STATUS_COUNTERS = ("messages_received", "messages_rejected", "events_received",
+                    "events_tagged", "events_filtered", "events_rejected", "missing_messages",
+                    "duplicate_messages")
+
+
 def accounting_data(night: NightFolder, archive: ArchiveSummary) -> dict:
-    sources: dict[str, dict[str, int]] = {}
+    """Where every event went, per source, and the checks that the numbers reconcile.
+
+    Parameters
+    ----------
+    night : NightFolder
+        The folder (ledger, rejects, ``status.json``).
+    archive : ArchiveSummary
+        The archive's rows per target.
+
+    Returns
+    -------
+    dict
+        Per-source ledger sums and their total, refused messages and rejected
+        events by reason, the service counters, the archive rows per target, the
+        checks (name, ok, detail) and whether all of them pass.
+    """
     ledger = night.table("ledger")
-    refused: dict[str, int] = {}
-    if ledger is not None:
-        names = ["(header unreadable)" if s is None else str(s)
-                 for s in ledger["source"].to_pylist()]
-        outcomes = ([str(o) for o in ledger["outcome"].to_pylist()]
-                    if "outcome" in ledger.schema.names else ["accepted"] * ledger.num_rows)
-        values = {c: ledger[c].fill_null(0).to_numpy() for c in _LEDGER_COLUMNS}
-        for index, name in enumerate(names):
-            entry = sources.setdefault(name, {"messages": 0, "refused_messages": 0,
-                                              **dict.fromkeys(_LEDGER_COLUMNS, 0)})
-            entry["messages"] += 1
-            if outcomes[index] != "accepted":
-                entry["refused_messages"] += 1
-                refused[outcomes[index]] = refused.get(outcomes[index], 0) + 1
-            for c in _LEDGER_COLUMNS:
-                entry[c] += int(values[c][index])
-    total = {"messages": sum(s["messages"] for s in sources.values()),
-             "refused_messages": sum(s["refused_messages"] for s in sources.values())}
-    for c in _LEDGER_COLUMNS:
-        total[c] = sum(s[c] for s in sources.values())
-    reasons: dict[str, dict[str, int]] = {}
-    event_rejects = 0
-    message_rejects = 0
-    rejects = night.table("rejects")
-    if rejects is not None:
-        for row in rejects.select(["source", "reason", "event_id", "events"]).to_pylist():
-            key = f"{row['source'] or '(unknown)'}\t{row['reason']}"
-            entry = reasons.setdefault(key, {"rows": 0, "events": 0})
-            entry["rows"] += 1
-            entry["events"] += int(row["events"] or 0)
-            if row["event_id"] is not None:
-                event_rejects += int(row["events"] or 0)
-            else:
-                message_rejects += int(row["events"] or 0)
-    by_reason = [{"source": k.split("\t")[0], "reason": k.split("\t")[1], **v}
-                 for k, v in sorted(reasons.items())]
-    checks = []
+    sources, refused = _ledger_sources(ledger)
+    total = _total(sources)
+    rejects = _rejects(night.table("rejects"))
     running = (night.status or {}).get("state") == "running"
-    if ledger is not None:
-        parts = total["tagged"] + total["filtered"] + total["rejected"]
-        checks.append({"name": "ledger: received = tagged + filtered + rejected",
-                       "ok": total["events"] == parts,
-                       "detail": f"{total['events']:,} = {total['tagged']:,} + "
-                                 f"{total['filtered']:,} + {total['rejected']:,}"
-                                 + ("" if total["events"] == parts else
-                                    f" (sum {parts:,})")})
-        if rejects is not None or total["rejected"]:
-            ok = total["rejected"] in (event_rejects, event_rejects + message_rejects)
-            checks.append({"name": "ledger rejected = events in the rejects stream",
-                           "ok": ok, "detail": f"ledger {total['rejected']:,}, rejects "
-                           f"stream {event_rejects:,} single events"
-                           + (f" + {message_rejects:,} in refused messages"
-                              if message_rejects else "")})
-        if len(archive.rows_by_target) == 1:
-            rows = next(iter(archive.rows_by_target.values()))
-            checks.append({"name": "archive rows = ledger tagged (one target)",
-                           "ok": rows == total["tagged"] or running,
-                           "detail": f"archive {rows:,}, ledger {total['tagged']:,}"
-                           + (" (live folder: streams read at slightly different moments)"
-                              if running and rows != total["tagged"] else "")})
+    checks = _ledger_checks(ledger is not None, night.table("rejects") is not None, total,
+                            rejects, archive, running)
     counters = (night.status or {}).get("counters") or {}
-    status_numbers = {}
-    if counters:
-        status_numbers = {k: counters.get(k) for k in (
-            "messages_received", "messages_rejected", "events_received", "events_tagged",
-            "events_filtered", "events_rejected", "missing_messages", "duplicate_messages")}
-        got = [counters.get(k) for k in ("events_received", "events_tagged",
-                                         "events_filtered", "events_rejected")]
-        if all(isinstance(v, int) for v in got):
-            checks.append({"name": "status.json: received = tagged + filtered + rejected",
-                           "ok": got[0] == got[1] + got[2] + got[3],
-                           "detail": f"{got[0]:,} = {got[1]:,} + {got[2]:,} + {got[3]:,}"})
-        if ledger is not None and not running and isinstance(got[1], int):
-            checks.append({"name": "status.json tagged = ledger tagged (stopped service)",
-                           "ok": got[1] == total["tagged"],
-                           "detail": f"status {got[1]:,}, ledger {total['tagged']:,}"})
+    status_numbers = {k: counters.get(k) for k in _STATUS_COUNTERS} if counters else {}
+    checks += _status_checks(counters, total, ledger is not None, running)
     return {"sources": sources, "total": total, "refused_messages_by_reason": refused,
-            "rejected_by_reason": by_reason,
-            "rejected_single_events": event_rejects, "rejected_in_messages": message_rejects,
+            "rejected_by_reason": rejects["by_reason"],
+            "rejected_single_events": rejects["single"],
+            "rejected_in_messages": rejects["in_messages"],
             "status_counters": status_numbers,
             "status_rejected_by_reason": (night.status or {}).get("rejected_by_reason") or {},
             "archive_rows_by_target": dict(archive.rows_by_target), "checks": checks,
             "reconciles": all(c["ok"] for c in checks)}
+
+
+def _ledger_sources(ledger) -> tuple[dict[str, dict[str, int]], dict[str, int]]:
+    """Ledger sums per source, and the refused messages per outcome."""
+    sources: dict[str, dict[str, int]] = {}
+    refused: dict[str, int] = {}
+    if ledger is None:
+        return sources, refused
+    names = ["(header unreadable)" if s is None else str(s)
+             for s in ledger["source"].to_pylist()]
+    outcomes = ([str(o) for o in ledger["outcome"].to_pylist()]
+                if "outcome" in ledger.schema.names else ["accepted"] * ledger.num_rows)
+    values = {c: ledger[c].fill_null(0).to_numpy() for c in _LEDGER_COLUMNS}
+    for index, name in enumerate(names):
+        entry = sources.setdefault(name, {"messages": 0, "refused_messages": 0,
+                                          **dict.fromkeys(_LEDGER_COLUMNS, 0)})
+        entry["messages"] += 1
+        if outcomes[index] != "accepted":
+            entry["refused_messages"] += 1
+            refused[outcomes[index]] = refused.get(outcomes[index], 0) + 1
+        for c in _LEDGER_COLUMNS:
+            entry[c] += int(values[c][index])
+    return sources, refused
+
+
+def _total(sources: dict[str, dict[str, int]]) -> dict[str, int]:
+    return {c: sum(s[c] for s in sources.values())
+            for c in ("messages", "refused_messages", *_LEDGER_COLUMNS)}
+
+
+def _rejects(rejects) -> dict:
+    """Rejects rows and events per (source, reason); single events apart from messages."""
+    reasons: dict[str, dict[str, int]] = {}
+    single = in_messages = 0
+    rows = [] if rejects is None else \
+        rejects.select(["source", "reason", "event_id", "events"]).to_pylist()
+    for row in rows:
+        key = f"{row['source'] or '(unknown)'}\t{row['reason']}"
+        entry = reasons.setdefault(key, {"rows": 0, "events": 0})
+        events = int(row["events"] or 0)
+        entry["rows"] += 1
+        entry["events"] += events
+        if row["event_id"] is not None:
+            single += events
+        else:
+            in_messages += events
+    by_reason = [{"source": k.split("\t")[0], "reason": k.split("\t")[1], **v}
+                 for k, v in sorted(reasons.items())]
+    return {"by_reason": by_reason, "single": single, "in_messages": in_messages}
+
+
+def _ledger_checks(has_ledger: bool, has_rejects: bool, total: dict[str, int], rejects: dict,
+                   archive: ArchiveSummary, running: bool) -> list[dict]:
+    if not has_ledger:
+        return []
+    parts = total["tagged"] + total["filtered"] + total["rejected"]
+    checks = [{"name": "ledger: received = tagged + filtered + rejected",
+               "ok": total["events"] == parts,
+               "detail": f"{total['events']:,} = {total['tagged']:,} + "
+                         f"{total['filtered']:,} + {total['rejected']:,}"
+                         + ("" if total["events"] == parts else f" (sum {parts:,})")}]
+    if has_rejects or total["rejected"]:
+        single, in_messages = rejects["single"], rejects["in_messages"]
+        checks.append({"name": "ledger rejected = events in the rejects stream",
+                       "ok": total["rejected"] in (single, single + in_messages),
+                       "detail": f"ledger {total['rejected']:,}, rejects stream {single:,} "
+                                 "single events"
+                                 + (f" + {in_messages:,} in refused messages"
+                                    if in_messages else "")})
+    if len(archive.rows_by_target) == 1:
+        rows = next(iter(archive.rows_by_target.values()))
+        checks.append({"name": "archive rows = ledger tagged (one target)",
+                       "ok": rows == total["tagged"] or running,
+                       "detail": f"archive {rows:,}, ledger {total['tagged']:,}"
+                       + (" (live folder: streams read at slightly different moments)"
+                          if running and rows != total["tagged"] else "")})
+    return checks
+
+
+def _status_checks(counters: dict, total: dict[str, int], has_ledger: bool,
+                   running: bool) -> list[dict]:
+    if not counters:
+        return []
+    got = [counters.get(k) for k in ("events_received", "events_tagged", "events_filtered",
+                                     "events_rejected")]
+    checks = []
+    if all(isinstance(v, int) for v in got):
+        checks.append({"name": "status.json: received = tagged + filtered + rejected",
+                       "ok": got[0] == got[1] + got[2] + got[3],
+                       "detail": f"{got[0]:,} = {got[1]:,} + {got[2]:,} + {got[3]:,}"})
+    if has_ledger and not running and isinstance(got[1], int):
+        checks.append({"name": "status.json tagged = ledger tagged (stopped service)",
+                       "ok": got[1] == total["tagged"],
+                       "detail": f"status {got[1]:,}, ledger {total['tagged']:,}"})
+    return checks
 
 
 def _site_text(text: str | None) -> str | None:

@@ -1,4 +1,4 @@
-"""The numbers behind each figure (profile, significance, clock check, phaseogram),
+"""The numbers behind each figure (profile, significance, clock check, phase-time map),
 as the arrays that are drawn and recorded in ``report-data.json``."""
 
 from __future__ import annotations
@@ -21,11 +21,11 @@ __all__ = [
     "profile_data",
     "significance_data",
     "clock_data",
-    "phaseogram_data",
+    "phase_time_map_data",
 ]
 
 
-_MAX_PHASEOGRAM_ROWS = 64
+_MAX_PHASE_TIME_MAP_ROWS = 64
 
 
 def finite(value) -> float | None:
@@ -241,13 +241,13 @@ def clock_data(row: dict | None, hours: UtcHours | None) -> dict | None:
     }
 
 
-def phaseogram_data(grid: Grid | None, hours: UtcHours | None) -> dict | None:
+def phase_time_map_data(grid: Grid | None, hours: UtcHours | None) -> dict | None:
     if grid is None or not grid.hist or hours is None:
         return None
     cells = sorted(grid.hist)
     first, last = cells[0], cells[-1]
     span = last - first + 1
-    group = max(1, math.ceil(span / _MAX_PHASEOGRAM_ROWS))
+    group = max(1, math.ceil(span / _MAX_PHASE_TIME_MAP_ROWS))
     rows = math.ceil(span / group)
     image = np.zeros((rows, grid.bins))
     for cell in cells:
