@@ -401,7 +401,7 @@ def test_live_view_draws_the_running_service(world, demo_env, lantern, night_sta
     # its rendered output read as a string (no terminal needed).
     import io
 
-    from turnstamp.watch import run_watch
+    from turnstamp.views.live import run_watch
 
     out, endpoint = world
     port = int(endpoint.rsplit(":", 1)[1]) + 3

@@ -201,7 +201,7 @@ def cmd_report(args) -> int:
 
 
 def cmd_watch(args) -> int:
-    from .watch import watch_main
+    from .views.live import watch_main
 
     return watch_main(args)
 

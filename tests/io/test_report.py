@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import argparse
 import base64
+import io
 import json
 import os
 import re
@@ -282,6 +283,13 @@ def test_a_live_folder_with_open_files_gives_a_report(night):
     assert data["targets"]["lantern"]["phase_time_map"]["all"]["total"] > 0
 
 
+class FakeTerminal(io.StringIO):
+    """A text stream that says it is a terminal."""
+
+    def isatty(self):
+        return True
+
+
 def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, tmp_path,
                                                                         monkeypatch, capsys):
     args = argparse.Namespace(output_dir=str(night["folder"]), to=str(tmp_path / "once"),
@@ -293,11 +301,16 @@ def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, t
         raise KeyboardInterrupt
 
     monkeypatch.setattr("turnstamp.views.report.command.time.sleep", interrupt)
+    terminal = FakeTerminal()  # standard error on a terminal: progress bars
+    monkeypatch.setattr("sys.stderr", terminal)
     args = argparse.Namespace(output_dir=str(night["folder"]), to=str(tmp_path / "every"),
                               every=30.0)
     assert report_main(args) == 0
     page = (tmp_path / "every" / "index.html").read_text()
     assert '<meta http-equiv="refresh" content="30">' in page
+    assert "wrote" in capsys.readouterr().out
+    assert "building the report" in terminal.getvalue() and "next report" in terminal.getvalue()
+    monkeypatch.undo()
     missing = argparse.Namespace(output_dir=str(tmp_path / "nowhere"), to=None, every=None)
     assert report_main(missing) == 2
     assert "no such output folder" in capsys.readouterr().err
