@@ -25,6 +25,7 @@ __all__ = [
     "time_text",
     "counters",
     "adds_up",
+    "last_sequence",
     "window_labels",
     "ascii_text",
 ]
@@ -96,6 +97,11 @@ def adds_up(numbers: dict) -> bool | None:
         return None
     received, tagged, filtered, rejected = values
     return received == tagged + filtered + rejected
+
+
+def last_sequence(source: dict):
+    """A source's last sequence number (``highest_sequence`` from the service)."""
+    return source.get("last_sequence", source.get("highest_sequence"))
 
 
 def window_labels(windows: dict) -> list[str]:

@@ -26,6 +26,7 @@ from .fields import (
     count_text,
     counters,
     is_number,
+    last_sequence,
     mapping,
     number_text,
     sigma_text,
@@ -158,8 +159,8 @@ def _totals_panel(status: dict) -> Panel:
                  box=box.ROUNDED, padding=(0, 1))
 
 
-def _one_line(text: str, style: str | None = None) -> Text:
-    return Text(text, style=style or "", no_wrap=True, overflow="ellipsis")
+def _one_line(text: str) -> Text:
+    return Text(text, no_wrap=True, overflow="ellipsis")
 
 
 def _title(status: dict) -> Text:
@@ -182,9 +183,8 @@ def _reasons_text(reasons: dict) -> str:
 
 
 def _source_text(name: str, source: dict) -> str:
-    last = source.get("last_sequence", source.get("highest_sequence"))
     return (f"{name}: {count_text(source.get('messages'))} messages, last sequence "
-            f"{count_text(last)}, missing {count_text(source.get('missing'))}")
+            f"{count_text(last_sequence(source))}, missing {count_text(source.get('missing'))}")
 
 
 def _targets_table(targets: list[dict]) -> Table:

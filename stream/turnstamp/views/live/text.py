@@ -15,6 +15,7 @@ from .fields import (
     ascii_text,
     count_text,
     counters,
+    last_sequence,
     mapping,
     number_text,
     sigma_text,
@@ -22,7 +23,7 @@ from .fields import (
     window_labels,
 )
 
-__all__ = ["BLOCKS", "ASCII_LEVELS", "PROFILE_ROWS", "render_status", "profile_bars"]
+__all__ = ["BLOCKS", "ASCII_LEVELS", "PROFILE_ROWS", "render_status", "profile_bars", "bar_heights"]
 
 BLOCKS = " ▁▂▃▄▅▆▇█"
 """Eighth-height block characters for the profile bar chart (index = eighths filled)."""
@@ -197,9 +198,9 @@ def _totals(status: dict) -> list[str]:
 
 
 def _source_text(name: str, source: dict) -> str:
-    last = source.get("last_sequence", source.get("highest_sequence"))
     return (f"{name}: {count_text(source.get('messages'))} messages, "
-            f"{count_text(source.get('events'))} events, last sequence {count_text(last)}, "
+            f"{count_text(source.get('events'))} events, "
+            f"last sequence {count_text(last_sequence(source))}, "
             f"missing {count_text(source.get('missing'))}")
 
 
