@@ -363,7 +363,7 @@ def test_live_view_draws_the_running_service(tmp_path, service_config, demo_env,
     # its rendered output read as a string (no terminal needed).
     import io
 
-    from turnstamp.watch import run_watch
+    from turnstamp.views.live import run_watch
 
     out = tmp_path / "out"
     config = load(service_config(publish=True))

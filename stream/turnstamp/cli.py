@@ -195,13 +195,13 @@ def cmd_inspect(args) -> int:
 
 
 def cmd_report(args) -> int:
-    from .report import report_main
+    from .views.report import report_main
 
     return report_main(args)
 
 
 def cmd_watch(args) -> int:
-    from .watch import watch_main
+    from .views.live import watch_main
 
     return watch_main(args)
 

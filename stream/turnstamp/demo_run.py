@@ -144,7 +144,7 @@ def run_demo(args) -> int:
 
 
 def _summary(out: Path, log_lines: list[str]) -> int:
-    from .watch import render_status
+    from .views.live import render_status
 
     status = json.loads((out / "status.json").read_text())
     print()

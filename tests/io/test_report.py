@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import argparse
 import base64
+import io
 import json
 import os
 import re
@@ -30,8 +31,8 @@ from turnstamp.files import schemas
 from turnstamp.files.durable import atomic_write_json
 from turnstamp.files.reader import read_stream
 from turnstamp.files.writer import RotatingArrowWriter
-from turnstamp.report import build_report, report_main
 from turnstamp.service import outputs
+from turnstamp.views.report import build_report, report_main
 
 pytest.importorskip("matplotlib")
 
@@ -189,7 +190,7 @@ def test_the_page_is_self_contained_with_every_figure_beside_it(report):
     assert not re.search(r"""(src|href)\s*=\s*["']?(https?:|//)""", page)
     assert "<link" not in page and "@import" not in page and "url(" not in page
     images = re.findall(r"<img [^>]*src=\"([^\"]*)\"", page)
-    assert len(images) == 4  # profile, phaseogram, significance, clock
+    assert len(images) == 4  # profile, phase-time map, significance, clock
     for src in images:
         assert src.startswith("data:image/png;base64,")
         assert base64.b64decode(src.split(",", 1)[1]).startswith(PNG_MAGIC)
@@ -197,12 +198,15 @@ def test_the_page_is_self_contained_with_every_figure_beside_it(report):
         png = report["index"].parent / name
         assert png.stat().st_size > 1000 and png.read_bytes().startswith(PNG_MAGIC)
     assert sorted(report["data"]["figures"]) == sorted(
-        ["lantern-profile.png", "lantern-phaseogram.png", "lantern-significance.png",
+        ["lantern-profile.png", "lantern-phase-time-map.png", "lantern-significance.png",
          "lantern-clock.png"])
     assert "http-equiv=\"refresh\"" not in page  # only with --every
+    for stem in ("profile", "phase-time-map", "significance", "clock"):
+        assert f'<figure id="lantern-{stem}">' in page
+    assert 'alt="lantern phase-time map"' in page
 
 
-def test_profile_and_phaseogram_sum_to_the_archive_weights_of_each_recipe(night, report):
+def test_profile_and_phase_time_map_sum_to_the_archive_weights_of_each_recipe(night, report):
     lantern = report["data"]["targets"]["lantern"]
     assert lantern["recipes"] == ["all", "hard"]
     for bit, (recipe, weighted) in enumerate([("all", False), ("hard", True)]):
@@ -212,10 +216,10 @@ def test_profile_and_phaseogram_sum_to_the_archive_weights_of_each_recipe(night,
         assert profile["source"] == "profiles stream (last row)"
         # archive weights are float32: sums agree to float32 rounding
         assert sum(profile["counts"]) == pytest.approx(expected, rel=1e-6)
-        phaseogram = lantern["phaseogram"][recipe]
-        assert phaseogram["total"] == pytest.approx(expected, rel=1e-6)
-        assert np.sum(phaseogram["counts"]) == pytest.approx(expected, rel=1e-6)
-        assert len(phaseogram["counts"][0]) == profile["bins"] == 32
+        time_map = lantern["phase_time_map"][recipe]
+        assert time_map["total"] == pytest.approx(expected, rel=1e-6)
+        assert np.sum(time_map["counts"]) == pytest.approx(expected, rel=1e-6)
+        assert len(time_map["counts"][0]) == profile["bins"] == 32
     # a template is configured: the fitted offset is drawn, and it is small (clean night)
     assert abs(lantern["profile"]["all"]["template_shift_cycles"]) < 0.02
 
@@ -279,7 +283,14 @@ def test_a_live_folder_with_open_files_gives_a_report(night):
     data = json.loads((live.parent / "report-data.json").read_text())
     notes = " ".join(data["notes"])
     assert "Open or cut-short files" in notes
-    assert data["targets"]["lantern"]["phaseogram"]["all"]["total"] > 0
+    assert data["targets"]["lantern"]["phase_time_map"]["all"]["total"] > 0
+
+
+class FakeTerminal(io.StringIO):
+    """A text stream that says it is a terminal."""
+
+    def isatty(self):
+        return True
 
 
 def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, tmp_path,
@@ -292,12 +303,17 @@ def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, t
     def interrupt(seconds):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr("turnstamp.report.time.sleep", interrupt)
+    monkeypatch.setattr("turnstamp.views.report.command.time.sleep", interrupt)
+    terminal = FakeTerminal()  # standard error on a terminal: progress bars
+    monkeypatch.setattr("sys.stderr", terminal)
     args = argparse.Namespace(output_dir=str(night["folder"]), to=str(tmp_path / "every"),
                               every=30.0)
     assert report_main(args) == 0
     page = (tmp_path / "every" / "index.html").read_text()
     assert '<meta http-equiv="refresh" content="30">' in page
+    assert "wrote" in capsys.readouterr().out
+    assert "building the report" in terminal.getvalue() and "next report" in terminal.getvalue()
+    monkeypatch.undo()
     missing = argparse.Namespace(output_dir=str(tmp_path / "nowhere"), to=None, every=None)
     assert report_main(missing) == 2
     assert "no such output folder" in capsys.readouterr().err
@@ -327,7 +343,7 @@ def test_offline_tagging_output_alone_gives_a_report(tmp_path, demo_env, lantern
     archive = pa.ipc.open_file(str(folder / "night-of-dec-2.arrow")).read_all()
     assert sum(target["profile"]["all"]["counts"]) == archive.num_rows  # unweighted recipe
     assert target["profile"]["all"]["source"] == "archive rows"
-    assert target["phaseogram"]["all"]["total"] == archive.num_rows
+    assert target["phase_time_map"]["all"]["total"] == archive.num_rows
     curve = target["significance"]["all"]
     assert curve["source"] == "computed from the archive rows"
     # the last point of the computed curve equals the H-test of the whole file
@@ -337,7 +353,7 @@ def test_offline_tagging_output_alone_gives_a_report(tmp_path, demo_env, lantern
     expected = stats.sigma_from_log_p(min(stats.h_test(moments).log_p, 0.0))
     assert curve["windows"]["cumulative"]["h_sigma"][-1] == pytest.approx(expected, rel=1e-9)
     assert target["clock"] is None
-    assert sorted(data["figures"]) == ["lantern-phaseogram.png", "lantern-profile.png",
+    assert sorted(data["figures"]) == ["lantern-phase-time-map.png", "lantern-profile.png",
                                        "lantern-significance.png"]
     notes = " ".join(data["notes"])
     assert "Offline tagging output" in notes and "no clock-chain check" in notes

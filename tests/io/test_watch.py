@@ -1,4 +1,5 @@
-"""``turnstamp watch``: the status screen, and the loop over a PUB socket or a folder."""
+"""``turnstamp watch``: the status screens (plain text and rich), and the loop over a PUB
+socket or a folder."""
 
 from __future__ import annotations
 
@@ -14,7 +15,9 @@ import zmq
 
 from turnstamp.core.timebase import parse_instant
 from turnstamp.files.durable import atomic_write_json
-from turnstamp.watch import BLOCKS, profile_bars, render_status, run_watch, watch_main
+from turnstamp.views.live import profile_bars, render_status, run_watch, watch_main
+from turnstamp.views.live.screen import screen_text
+from turnstamp.views.live.text import BLOCKS
 
 ESCAPE = re.compile(r"\x1b")
 
@@ -121,11 +124,54 @@ def test_the_profile_is_drawn_as_bars_over_two_cycles():
     axis = plain[start + 6]
     assert axis.strip().startswith("+") and axis.count("+") == 3
 
-    fancy = render_status(status, width=100, color=True)
-    assert "\x1b[" in fancy and "█" in fancy and "σ post-trials" in fancy
+    fancy = render_status(status, width=100, color=True)  # the rich screen, with styles
+    assert "\x1b[" in fancy and "█" in fancy and "σ (trials)" in fancy
     assert "\x1b[32mOK\x1b[0m" in fancy and "\x1b[1;31mFAIL\x1b[0m" in fancy
     unicode_plain = render_status(status, width=100, color=False, blocks=True)
     assert not ESCAPE.search(unicode_plain) and "█" in unicode_plain
+
+
+def test_a_significance_below_zero_reads_no_excess_never_minus_infinity():
+    status = make_status()
+    ember = status["targets"][1]["recipes"][0]["windows"]["cumulative"]
+    ember.update(sigma=float("-inf"), sigma_post_trials=-0.4)  # chance gives more
+    # the service's JSON carries -inf as -Infinity (json.dumps): read it back the same way
+    status = json.loads(json.dumps(status))
+    plain = render_status(status, width=100)
+    assert re.search(r"cumulative\s+0\s+0\.0\s+1\s+no excess\s+no excess", plain)
+    screen = screen_text(status, width=80, styles=False)
+    ember_row = next(line for line in screen.splitlines() if line.startswith("ember"))
+    assert "no excess" in ember_row
+    for text in (plain, screen, render_status(status, color=True)):
+        assert "inf" not in text.lower()
+
+
+def test_the_rich_screen_fits_80_by_24_with_the_totals_first():
+    text = screen_text(make_status(), width=80, styles=False, note="no update for 5 s")
+    lines = text.splitlines()
+    assert len(lines) <= 24 and all(len(line) <= 80 for line in lines)
+    assert lines[0].startswith("╭─ turnstamp ● running · updated 2026-12-02 02:04:05 UTC")
+    # the totals are the first thing in the panel: headers, then the numbers in order
+    assert re.search(r"received\s+tagged\s+filtered\s+rejected\s+events/s", lines[1])
+    assert re.search(r"477,090\s+470,001\s+7,085\s+4\s+1,987\.5\s+adds up", lines[2])
+    first_target = next(i for i, line in enumerate(lines) if line.startswith("lantern"))
+    assert first_target > 2 and "no update for 5 s" in text
+    assert "messages 48 (1 refused, 2 missing, 0 duplicate) · rejected bad_time 4" in text
+    # a row per window, the significance after trials beside a bar, the profile as blocks
+    rows = [line for line in lines if re.search(r"\b(cumulative|5min|60min)\b", line)]
+    assert len(rows) == 7
+    assert re.search(r"lantern\s+all\s+cumulative\s+343,563\s+━+ 20\.18\s+[█▁-▇ ]+$", rows[0])
+    assert re.search(r"hard\s+cumulative\s+591\s+━+ 45\.84", rows[3])
+    assert re.search(r"60min\s+591\s+-", rows[5])
+    assert "311.37 Hz" in lines[first_target + 1]
+    assert "ember" in rows[6] and "no events yet" in rows[6]
+    assert "clock lantern (all): OK — none" in text
+    assert "clock ember (all): FAIL — offset · FAIL: offset of 37 s" in text
+    assert lines[-1] == "! leap-second table expires in 20 days"
+    assert "DOES NOT ADD UP" in screen_text(
+        {"counters": {"events_received": 3, "events_tagged": 1, "events_filtered": 1,
+                      "events_rejected": 0}}, styles=False)
+    assert "turnstamp ● unknown" in screen_text({}, styles=False)
 
 
 def test_profile_bars_fit_a_narrow_screen_and_keep_the_shape():
@@ -235,6 +281,42 @@ def test_folder_mode_reads_status_json(tmp_path, capsys):
     empty = tmp_path / "empty"
     empty.mkdir()
     assert run_watch(folder=empty, once=True, out=io.StringIO(), timeout_s=0.3) == 1
+
+
+class FakeTerminal(io.StringIO):
+    """A text stream that says it is a terminal, and keeps what was drawn on it."""
+
+    def isatty(self):
+        return True
+
+
+CONTROL = re.compile(r"\x1b\[[0-9;?]*[A-Za-z]")
+
+
+def test_a_terminal_gets_the_rich_screen_redrawn_in_place(tmp_path):
+    atomic_write_json(tmp_path / "status.json", make_status())
+    out = FakeTerminal()
+    assert run_watch(folder=tmp_path, out=out, width=80, max_frames=2, interval_s=0.05) == 0
+    drawn = out.getvalue()
+    assert "\x1b[?25l" in drawn  # the cursor hidden while the screen is redrawn in place
+    assert "\x1b[32m" in drawn  # colour
+    visible = CONTROL.sub("", drawn)
+    assert visible.count("╭─ turnstamp ● running") >= 2  # the same screen, drawn again
+    assert "477,090" in visible and "adds up" in visible
+    once = FakeTerminal()
+    assert run_watch(folder=tmp_path, out=once, width=80, once=True) == 0
+    assert "\x1b[?25l" not in once.getvalue()  # once: printed, not redrawn
+    assert CONTROL.sub("", once.getvalue()).count("╭─ turnstamp") == 1
+
+
+def test_ascii_on_a_terminal_is_plain_text_in_place(tmp_path):
+    atomic_write_json(tmp_path / "status.json", make_status())
+    out = FakeTerminal()
+    assert run_watch(folder=tmp_path, out=out, width=80, blocks=False, max_frames=1) == 0
+    visible = CONTROL.sub("", out.getvalue())
+    assert visible.isascii() and "╭" not in visible
+    assert "477,090 received = 470,001 tagged + 7,085 filtered + 4 rejected" in visible
+    assert all(len(line) <= 80 for line in visible.splitlines())
 
 
 @pytest.mark.parametrize("endpoint, folder", [(None, None), ("tcp://127.0.0.1:1", "x")])

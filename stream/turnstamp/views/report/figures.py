@@ -7,7 +7,7 @@ import io
 
 import numpy as np
 
-from ..core.timebase import NS_PER_S
+from ...core.timebase import NS_PER_S
 from .night import ReportError
 from .timegrid import UtcHours
 
@@ -17,7 +17,7 @@ __all__ = [
     "import_matplotlib",
     "png_bytes",
     "draw_profile",
-    "draw_phaseogram",
+    "draw_phase_time_map",
     "draw_significance",
     "draw_clock",
 ]
@@ -116,14 +116,14 @@ def draw_profile(Figure, target: str, profiles: dict[str, dict]):
     return fig
 
 
-def draw_phaseogram(Figure, target: str, grams: dict[str, dict], hours: UtcHours):
-    recipes = list(grams)
+def draw_phase_time_map(Figure, target: str, time_maps: dict[str, dict], hours: UtcHours):
+    recipes = list(time_maps)
     width, height = 5.5 * len(recipes) + 0.5, 5.2
     fig = Figure(figsize=(width, height), dpi=_DPI)
     axes = fig.subplots(1, len(recipes), squeeze=False)[0]
     _frame(fig, width, height, left=0.95, right=0.95, wgap=0.42)
     for ax, recipe in zip(axes, recipes, strict=True):
-        d = grams[recipe]
+        d = time_maps[recipe]
         image = np.tile(d["counts"], (1, 2))
         phase_edges = np.arange(2 * d["bins"] + 1) / d["bins"]
         mesh = ax.pcolormesh(phase_edges, hours.plot(d["time_edges_utc_hours"]), image,
@@ -133,7 +133,7 @@ def draw_phaseogram(Figure, target: str, grams: dict[str, dict], hours: UtcHours
         bar.set_label(f"{_units(d['weighted'])} per {d['row_seconds']} s")
         ax.set_xlabel("rotational phase (cycles)")
         ax.set_ylabel(hours.axis_label)
-        ax.set_title(f"{target} / {recipe}: phaseogram")
+        ax.set_title(f"{target} / {recipe}: phase-time map")
     return fig
 
 

@@ -66,7 +66,8 @@ def _number(value) -> str:
 
 def _figure_html(figure: dict) -> str:
     encoded = base64.b64encode(figure["png"]).decode("ascii")
-    return (f'<figure><img src="data:image/png;base64,{encoded}" alt="{escape(figure["alt"])}">'
+    return (f'<figure id="{escape(figure["id"])}">'
+            f'<img src="data:image/png;base64,{encoded}" alt="{escape(figure["alt"])}">'
             f"<figcaption>{escape(figure['caption'])} (also saved as {escape(figure['file'])})"
             "</figcaption></figure>")
 

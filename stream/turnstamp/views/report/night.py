@@ -10,9 +10,9 @@ from typing import Any
 
 import pyarrow as pa
 
-from ..errors import ArrowFileError
-from ..files import schemas
-from ..files.reader import read_arrow_file, read_arrow_file_report, stream_files
+from ...errors import ArrowFileError
+from ...files import schemas
+from ...files.reader import read_arrow_file, read_arrow_file_report, stream_files
 
 __all__ = [
     "ReportError",
@@ -88,90 +88,126 @@ def load_night(output_dir: Path) -> NightFolder:
     folder = Path(output_dir)
     if not folder.is_dir():
         raise FileNotFoundError(f"{folder}: no such output folder")
-    tables: dict[str, pa.Table | None] = {}
-    files: dict[str, dict[str, int]] = {}
-    metadata: dict[str, str] = {}
-    notes: list[str] = []
+    streams = _read_streams(folder)
+    archive_files = stream_files(folder, "archive")
+    mode = "service"
+    if not archive_files and not any(streams.files.get(s) for s in schemas.OUTPUTS):
+        archive_files = _read_tagging_output(folder, streams)
+        mode = "tagging"
+    status = _read_status(folder, streams.notes)
+    night = NightFolder(folder, mode, archive_files, streams.metadata, streams.tables, status,
+                        streams.files, streams.notes)
+    _note_missing(night)
+    return night
+
+
+@dataclass
+class _Streams:
+    """The stream files of a folder as read so far."""
+
+    tables: dict[str, pa.Table | None] = field(default_factory=dict)
+    files: dict[str, dict[str, int]] = field(default_factory=dict)
+    metadata: dict[str, str] = field(default_factory=dict)
+    notes: list[str] = field(default_factory=list)
+
+
+def _read_streams(folder: Path) -> _Streams:
+    """Every stream's rows (not the archive's) and file counts; the newest metadata."""
+    streams = _Streams()
     newest: dict[str, dict[str, str]] = {}  # stem -> metadata of its newest file
     for stem in schemas.OUTPUTS:
         paths = stream_files(folder, stem)
         if not paths:
-            tables[stem] = None
+            streams.tables[stem] = None
             continue
-        partial = 0
-        rows = 0
-        pieces = []
-        for path in paths:
-            try:
-                table, info = read_arrow_file_report(path)
-            except (ArrowFileError, OSError) as exc:  # OSError: rotated away meanwhile
-                notes.append(f"{path.name} skipped: {exc}")
-                continue
-            partial += not info.complete
-            rows += table.num_rows
-            if stem != "archive":
-                pieces.append(table)
-            newest[stem] = metadata_of(table.schema)
-        files[stem] = {"files": len(paths), "rows": rows, "partial": partial}
-        if stem == "archive":
-            tables[stem] = None
-        else:
-            tables[stem] = pa.concat_tables(pieces, promote_options="permissive") \
-                if pieces else schemas.OUTPUTS[stem].empty_table()
+        table, entry, metadata = _read_stream(stem, paths, streams.notes)
+        streams.tables[stem] = table
+        streams.files[stem] = entry
+        if metadata is not None:
+            newest[stem] = metadata
     for stem in reversed(schemas.OUTPUTS):  # the archive's provenance wins
-        metadata.update(newest.get(stem, {}))
-    archive_files = stream_files(folder, "archive")
-    mode = "service"
-    if not archive_files and not any(files.get(s) for s in schemas.OUTPUTS):
-        archive_files, extra_rejects = [], []
-        for path in sorted([*folder.glob("*.arrow"), *folder.glob("*.parquet")]):
-            if path.name.startswith("."):
-                continue
-            try:
-                table = read_any(path)
-            except (ArrowFileError, OSError, pa.ArrowException) as exc:
-                notes.append(f"{path.name} skipped: {exc}")
-                continue
-            if _is_schema(table, schemas.ARCHIVE):
-                archive_files.append(path)
-                metadata = metadata or metadata_of(table.schema)
-                entry = files.setdefault("archive", {"files": 0, "rows": 0, "partial": 0})
-                entry["files"] += 1
-                entry["rows"] += table.num_rows
-            elif _is_schema(table, schemas.REJECTS):
-                extra_rejects.append(table.select(schemas.REJECTS.names))
-        if not archive_files:
-            raise ReportError(f"{folder}: no turnstamp output here (no stream files and no "
-                              "file of archive schema)")
-        mode = "tagging"
-        if extra_rejects:
-            tables["rejects"] = pa.concat_tables(extra_rejects, promote_options="permissive")
-            files["rejects"] = {"files": len(extra_rejects),
-                                "rows": tables["rejects"].num_rows, "partial": 0}
-    status = None
-    status_path = folder / "status.json"
-    if status_path.exists():
+        streams.metadata.update(newest.get(stem, {}))
+    return streams
+
+
+def _read_stream(stem: str, paths: list[Path], notes: list[str]):
+    """One stream's files: its rows (None for the archive), counts, newest metadata."""
+    partial = rows = 0
+    pieces = []
+    metadata = None
+    for path in paths:
         try:
-            status = json.loads(status_path.read_text(encoding="utf-8"))
-            if not isinstance(status, dict):
-                raise ValueError("not a JSON object")
-        except (OSError, ValueError) as exc:
-            notes.append(f"status.json unreadable: {exc}")
-            status = None
-    night = NightFolder(folder, mode, archive_files, metadata, tables, status, files, notes)
-    _note_missing(night)
-    return night
+            table, info = read_arrow_file_report(path)
+        except (ArrowFileError, OSError) as exc:  # OSError: rotated away meanwhile
+            notes.append(f"{path.name} skipped: {exc}")
+            continue
+        partial += not info.complete
+        rows += table.num_rows
+        if stem != "archive":
+            pieces.append(table)
+        metadata = metadata_of(table.schema)
+    entry = {"files": len(paths), "rows": rows, "partial": partial}
+    if stem == "archive":
+        return None, entry, metadata
+    if not pieces:
+        return schemas.OUTPUTS[stem].empty_table(), entry, metadata
+    return pa.concat_tables(pieces, promote_options="permissive"), entry, metadata
+
+
+def _read_tagging_output(folder: Path, streams: _Streams) -> list[Path]:
+    """The archive-schema files of ``turnstamp tag`` output (and any rejects beside)."""
+    archive_files, extra_rejects = [], []
+    for path in sorted([*folder.glob("*.arrow"), *folder.glob("*.parquet")]):
+        if path.name.startswith("."):
+            continue
+        try:
+            table = read_any(path)
+        except (ArrowFileError, OSError, pa.ArrowException) as exc:
+            streams.notes.append(f"{path.name} skipped: {exc}")
+            continue
+        if _is_schema(table, schemas.ARCHIVE):
+            archive_files.append(path)
+            streams.metadata = streams.metadata or metadata_of(table.schema)
+            entry = streams.files.setdefault("archive", {"files": 0, "rows": 0, "partial": 0})
+            entry["files"] += 1
+            entry["rows"] += table.num_rows
+        elif _is_schema(table, schemas.REJECTS):
+            extra_rejects.append(table.select(schemas.REJECTS.names))
+    if not archive_files:
+        raise ReportError(f"{folder}: no turnstamp output here (no stream files and no "
+                          "file of archive schema)")
+    if extra_rejects:
+        rejects = pa.concat_tables(extra_rejects, promote_options="permissive")
+        streams.tables["rejects"] = rejects
+        streams.files["rejects"] = {"files": len(extra_rejects), "rows": rejects.num_rows,
+                                    "partial": 0}
+    return archive_files
+
+
+def _read_status(folder: Path, notes: list[str]) -> dict | None:
+    """``status.json`` as a dict; None (and a note when unreadable) otherwise."""
+    path = folder / "status.json"
+    if not path.exists():
+        return None
+    try:
+        status = json.loads(path.read_text(encoding="utf-8"))
+        if not isinstance(status, dict):
+            raise ValueError("not a JSON object")
+    except (OSError, ValueError) as exc:
+        notes.append(f"status.json unreadable: {exc}")
+        return None
+    return status
 
 
 def _note_missing(night: NightFolder) -> None:
     if night.mode == "tagging":
         night.notes.append(
-            "Offline tagging output (one archive-schema file): the profile, phaseogram and "
+            "Offline tagging output (one archive-schema file): the profile, phase-time map and "
             "significance curve are computed here from the archive rows (cumulative only, "
             "unweighted unless the recipe says otherwise); there are no sliding windows, "
             "no template fit, no clock-chain check and no ledger of received messages.")
         return
-    missing = {"archive": "no phaseogram (and no profile if the profiles stream is missing)",
+    missing = {"archive": "no phase-time map (and no profile if the profiles stream is missing)",
                "significance": "significance curve computed from the archive (cumulative only)",
                "profiles": "profile computed from the archive phases (no template fit)",
                "clock": "no clock-chain check",

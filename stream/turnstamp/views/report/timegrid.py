@@ -19,11 +19,11 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from ..core import stats
-from ..core.flags import Quality
-from ..core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, from_tt
-from ..errors import ArrowFileError
-from ..files.reader import read_arrow_file_report
+from ...core import stats
+from ...core.flags import Quality
+from ...core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, from_tt
+from ...errors import ArrowFileError
+from ...files.reader import read_arrow_file_report
 from .night import NightFolder, metadata_of, read_any, recipes_from_metadata
 
 __all__ = [
@@ -39,7 +39,7 @@ __all__ = [
 
 
 GRID_S = 10
-"""Finest width of the archive's time grid, seconds (phaseogram rows are whole cells)."""
+"""Finest width of the archive's time grid, seconds (phase-time map rows are whole cells)."""
 _MAX_CELLS = 5000
 """The grid widens (in whole multiples of GRID_S) to keep at most this many cells."""
 GRID_ORIGIN_NS = 69_184_000_000
@@ -105,6 +105,14 @@ def _dictionary_column(batch: pa.RecordBatch, name: str) -> tuple[np.ndarray, li
             [str(v) for v in column.dictionary.to_pylist()])
 
 
+@dataclass(frozen=True)
+class _GridOptions:
+    weighted: dict[tuple[str, str], bool]
+    bins: dict[tuple[str, str], int]
+    with_moments: bool
+    cell_ns: int
+
+
 def _reduce_file(path: Path, weighted: dict[tuple[str, str], bool],
                  bins: dict[tuple[str, str], int], with_moments: bool,
                  fallback_recipes: dict[str, list[str]], cell_ns: int) -> _FileReduction:
@@ -115,59 +123,78 @@ def _reduce_file(path: Path, weighted: dict[tuple[str, str], bool],
     key = (str(path), stat.st_size, stat.st_mtime_ns, settings)
     if key in _CACHE:  # only complete files are cached; same size and time: unchanged
         return _CACHE[key]
-    complete = path.suffix.lower() == ".parquet"
-    if not complete:
-        table, info = read_arrow_file_report(path)
-        complete = info.complete
-    else:
-        table = read_any(path)
-    meta = metadata_of(table.schema)
-    recipes = recipes_from_metadata(meta) or fallback_recipes
-    present = [c for c in _ARCHIVE_COLUMNS if c in table.schema.names]
-    table = table.select(present)
+    table, complete = _read_archive(path)
+    recipes = recipes_from_metadata(metadata_of(table.schema)) or fallback_recipes
+    table = table.select([c for c in _ARCHIVE_COLUMNS if c in table.schema.names])
+    options = _GridOptions(weighted, bins, with_moments, cell_ns)
     reduction = _FileReduction({}, {}, {}, with_moments)
     for batch in table.to_batches(max_chunksize=1 << 20):
-        if batch.num_rows == 0:
-            continue
-        target_index, target_names = _dictionary_column(batch, "target")
-        tt = batch.column("site_tt_ns").to_numpy(zero_copy_only=False)
-        phase = batch.column("phase").to_numpy(zero_copy_only=False).astype(np.float64)
-        weight = batch.column("weight").to_numpy(zero_copy_only=False).astype(np.float64)
-        flags = batch.column("recipe_flags").to_numpy(zero_copy_only=False)
-        usable = (batch.column("quality_flags").to_numpy(zero_copy_only=False)
-                  & np.uint32(Quality.OUTSIDE_MODEL_VALIDITY)) == 0
-        if "model_id" in present:
-            model_index, model_names = _dictionary_column(batch, "model_id")
-        for i, target in enumerate(target_names):
-            rows = target_index == i
-            count = int(rows.sum())
-            if not count:
-                continue
-            reduction.rows_by_target[target] = reduction.rows_by_target.get(target, 0) + count
-            if "model_id" in present:
-                used = np.unique(model_index[rows])
-                reduction.model_ids.setdefault(target, set()).update(
-                    model_names[j] for j in used)
-            names = recipes.get(target)
-            if not names:
-                highest = int(np.max(flags[rows])).bit_length() if count else 0
-                names = [f"recipe {b}" for b in range(max(highest, 1))]
-            for bit, recipe in enumerate(names):
-                chosen = rows & usable & (((flags >> np.uint32(bit)) & 1) == 1)
-                if not chosen.any():
-                    continue
-                key2 = (target, recipe)
-                is_weighted = weighted.get(key2, False)
-                grid = reduction.grids.setdefault(
-                    key2, Grid(bins.get(key2, stats.DEFAULT_BINS), is_weighted, cell_ns,
-                               moments={} if with_moments else None))
-                _add_rows(grid, tt[chosen], phase[chosen],
-                          weight[chosen] if is_weighted else None)
+        if batch.num_rows:
+            _reduce_batch(batch, recipes, options, reduction)
     if complete:
         for stale in [k for k in _CACHE if k[0] == key[0]]:
             del _CACHE[stale]
         _CACHE[key] = reduction
     return reduction
+
+
+def _read_archive(path: Path) -> tuple[pa.Table, bool]:
+    """An archive file's rows, and whether the file is complete (a footer, or Parquet)."""
+    if path.suffix.lower() == ".parquet":
+        return read_any(path), True
+    table, info = read_arrow_file_report(path)
+    return table, info.complete
+
+
+def _numpy(batch: pa.RecordBatch, name: str) -> np.ndarray:
+    return batch.column(name).to_numpy(zero_copy_only=False)
+
+
+def _reduce_batch(batch: pa.RecordBatch, recipes: dict[str, list[str]],
+                  options: _GridOptions, reduction: _FileReduction) -> None:
+    """Add one record batch of archive rows to the grids of ``reduction``."""
+    target_index, target_names = _dictionary_column(batch, "target")
+    models = (_dictionary_column(batch, "model_id") if "model_id" in batch.schema.names
+              else None)
+    columns = {"tt": _numpy(batch, "site_tt_ns"),
+               "phase": _numpy(batch, "phase").astype(np.float64),
+               "weight": _numpy(batch, "weight").astype(np.float64),
+               "flags": _numpy(batch, "recipe_flags"),
+               "usable": (_numpy(batch, "quality_flags")
+                          & np.uint32(Quality.OUTSIDE_MODEL_VALIDITY)) == 0}
+    for i, target in enumerate(target_names):
+        rows = target_index == i
+        count = int(rows.sum())
+        if not count:
+            continue
+        reduction.rows_by_target[target] = reduction.rows_by_target.get(target, 0) + count
+        if models is not None:
+            model_index, model_names = models
+            reduction.model_ids.setdefault(target, set()).update(
+                model_names[j] for j in np.unique(model_index[rows]))
+        names = recipes.get(target) or _bit_names(columns["flags"][rows])
+        for bit, recipe in enumerate(names):
+            _add_recipe_rows(reduction, options, (target, recipe), columns,
+                             rows & columns["usable"]
+                             & (((columns["flags"] >> np.uint32(bit)) & 1) == 1))
+
+
+def _bit_names(flags: np.ndarray) -> list[str]:
+    """Names for recipes known only by their bits ("recipe 0", "recipe 1", ...)."""
+    highest = int(np.max(flags)).bit_length() if flags.size else 0
+    return [f"recipe {b}" for b in range(max(highest, 1))]
+
+
+def _add_recipe_rows(reduction: _FileReduction, options: _GridOptions, key: tuple[str, str],
+                     columns: dict[str, np.ndarray], chosen: np.ndarray) -> None:
+    if not chosen.any():
+        return
+    weighted = options.weighted.get(key, False)
+    grid = reduction.grids.setdefault(
+        key, Grid(options.bins.get(key, stats.DEFAULT_BINS), weighted, options.cell_ns,
+                  moments={} if options.with_moments else None))
+    _add_rows(grid, columns["tt"][chosen], columns["phase"][chosen],
+              columns["weight"][chosen] if weighted else None)
 
 
 def _add_rows(grid: Grid, tt: np.ndarray, phase: np.ndarray, weight: np.ndarray | None):

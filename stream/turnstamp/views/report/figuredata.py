@@ -1,4 +1,4 @@
-"""The numbers behind each figure (profile, significance, clock check, phaseogram),
+"""The numbers behind each figure (profile, significance, clock check, phase-time map),
 as the arrays that are drawn and recorded in ``report-data.json``."""
 
 from __future__ import annotations
@@ -9,8 +9,8 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from ..core import stats
-from ..core.timebase import NS_PER_S
+from ...core import stats
+from ...core.timebase import NS_PER_S
 from .night import json_or_none
 from .timegrid import GRID_ORIGIN_NS, Grid, UtcHours
 
@@ -21,11 +21,11 @@ __all__ = [
     "profile_data",
     "significance_data",
     "clock_data",
-    "phaseogram_data",
+    "phase_time_map_data",
 ]
 
 
-_MAX_PHASEOGRAM_ROWS = 64
+_MAX_PHASE_TIME_MAP_ROWS = 64
 
 
 def finite(value) -> float | None:
@@ -76,7 +76,7 @@ def _fourier_curve(cos_moments, sin_moments, harmonics: int, sum_w: float, bins:
 def profile_data(target, recipe, row: dict | None, grid: Grid | None, template,
                  weighted: bool) -> dict | None:
     """Profile of one recipe: the last profiles row, or else the archive."""
-    from ..core import profile as profile_math
+    from ...core import profile as profile_math
 
     if row is not None and row.get("counts"):
         counts = np.asarray(row["counts"], float)
@@ -241,13 +241,13 @@ def clock_data(row: dict | None, hours: UtcHours | None) -> dict | None:
     }
 
 
-def phaseogram_data(grid: Grid | None, hours: UtcHours | None) -> dict | None:
+def phase_time_map_data(grid: Grid | None, hours: UtcHours | None) -> dict | None:
     if grid is None or not grid.hist or hours is None:
         return None
     cells = sorted(grid.hist)
     first, last = cells[0], cells[-1]
     span = last - first + 1
-    group = max(1, math.ceil(span / _MAX_PHASEOGRAM_ROWS))
+    group = max(1, math.ceil(span / _MAX_PHASE_TIME_MAP_ROWS))
     rows = math.ceil(span / group)
     image = np.zeros((rows, grid.bins))
     for cell in cells:
