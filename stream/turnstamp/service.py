@@ -30,9 +30,9 @@ import numpy as np
 import zmq
 
 from . import __version__, recovery
-from .assemble import Environment, TableCache, build_target, load_predictors
+from .assemble import Environment, TableCache, build_target, load_phase_calculators
 from .config import ServiceConfig, load_config
-from .core.barycentre import TableSet
+from .core.correctiontable import TableSet
 from .core.pipeline import Pipeline, PipelineSettings
 from .core.tagger import TargetTagger
 from .core.timebase import NS_PER_DAY, NS_PER_S, Scale, parse_instant, to_tt, unix_to_ns
@@ -373,10 +373,10 @@ class Service:
             setup = self.pipeline.targets[target.name]
             try:
                 if changed:
-                    predictors = load_predictors(paths)
+                    calculators = load_phase_calculators(paths)
                     for p in paths:
                         self._mtimes[p] = _mtime(p)
-                    tagger = TargetTagger(target.name, predictors, setup.tagger.table)
+                    tagger = TargetTagger(target.name, calculators, setup.tagger.table)
                     restarted = self.pipeline.replace_models(target.name, tagger)
                     changes.append(f"{target.name}: models reloaded ({', '.join(tagger.model_ids)})"
                                    + ("; statistics restarted (new phase reference)"

@@ -19,8 +19,8 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from ..core import stats
 from ..core.flags import Quality
+from ..core.moments import DEFAULT_BINS, MAX_HARMONICS, PhaseMoments
 from ..core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, from_tt
 from ..io import sinks
 from .night import NightFolder, metadata_of, read_any, recipes_from_metadata
@@ -57,7 +57,7 @@ class Grid:
     cell_ns: int
     hist: dict[int, np.ndarray] = field(default_factory=dict)  # cell -> sum w per bin
     hist_w2: dict[int, np.ndarray] = field(default_factory=dict)
-    moments: dict[int, stats.PhaseMoments] | None = None
+    moments: dict[int, PhaseMoments] | None = None
     rows: int = 0
     sum_w: float = 0.0
     first_ns: int | None = None
@@ -158,7 +158,7 @@ def _reduce_file(path: Path, weighted: dict[tuple[str, str], bool],
                 key2 = (target, recipe)
                 is_weighted = weighted.get(key2, False)
                 grid = reduction.grids.setdefault(
-                    key2, Grid(bins.get(key2, stats.DEFAULT_BINS), is_weighted, cell_ns,
+                    key2, Grid(bins.get(key2, DEFAULT_BINS), is_weighted, cell_ns,
                                moments={} if with_moments else None))
                 _add_rows(grid, tt[chosen], phase[chosen],
                           weight[chosen] if is_weighted else None)
@@ -196,7 +196,7 @@ def _add_rows(grid: Grid, tt: np.ndarray, phase: np.ndarray, weight: np.ndarray 
         for start, end in zip(starts, ends, strict=True):
             cell = int(sorted_cells[start])
             take = order[start:end]
-            m = grid.moments.setdefault(cell, stats.PhaseMoments(stats.MAX_HARMONICS,
+            m = grid.moments.setdefault(cell, PhaseMoments(MAX_HARMONICS,
                                                                  grid.bins))
             m.update(phase[take], None if weight is None else weight[take])
     grid.rows += tt.size
