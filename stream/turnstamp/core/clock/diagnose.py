@@ -36,7 +36,6 @@ The numerical core only: no I/O, no clock.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -46,9 +45,8 @@ from ..templatefit import OffsetFit
 from . import wording
 from .chunks import ChunkOffset
 from .mistakes import Explanation, explain_offset
+from .rating import blind_spots, effects, status_and_kind
 from .series import (
-    ConstantFit,
-    DriftFit,
     JitterFit,
     StepFit,
     delta_chi2_sigma,
@@ -58,77 +56,20 @@ from .series import (
     fit_step,
     unwrap_offsets,
 )
-from .smear import SmearFit, fit_smear
+from .smear import fit_smear
 from .verdict import (
     MARGINAL_SIGMA,
     MAX_CHUNK_SIGMA,
     MIN_CHUNKS,
     MIN_WOBBLE_CHUNKS,
-    SIGNIFICANT_SIGMA,
-    WELL_INSIDE,
     ClockVerdict,
+    Fits,
+    Offset,
+    Tolerance,
 )
-from .wobble import WobbleFit, fit_wobble
+from .wobble import fit_wobble
 
-__all__ = ["Tolerance", "Fits", "Offset", "diagnose", "usable_chunks"]
-
-_RANK = {"OK": 0, "WARN": 1, "FAIL": 2}
-_PRIORITY = {"step": 5, "drift": 5, "wobble": 5, "smeared": 3, "offset": 1}
-_STRUCTURES = ("step", "drift", "wobble")
-
-
-@dataclass(frozen=True)
-class Tolerance:
-    """The spin frequency ``nu`` (Hz) and the effective tolerance, in cycles and µs."""
-
-    nu: float
-    cycles: float
-    us: float
-
-    @property
-    def text(self) -> str:
-        return f"tolerance {self.cycles:.4f} cycles = {self.us:.1f} µs at {self.nu:.6g} Hz"
-
-
-@dataclass
-class Fits:
-    """The unwrapped chunk series (t in s, y and sig in cycles) and the models fitted."""
-
-    t: np.ndarray
-    y: np.ndarray
-    sig: np.ndarray
-    constant: ConstantFit | None = None
-    drift: DriftFit | None = None
-    step: StepFit | None = None
-    wobble: WobbleFit | None = None
-    smear: SmearFit | None = None
-    jitter: JitterFit | None = None
-    chi2: dict[str, dict[str, float]] = field(default_factory=dict)
-
-    @property
-    def best_structure(self) -> tuple[str, Any] | None:
-        """The most significant of step, drift and wobble (name, fit), if any was fitted."""
-        fitted = [(name, getattr(self, name)) for name in _STRUCTURES
-                  if getattr(self, name) is not None]
-        return max(fitted, key=lambda item: item[1].significance_sigma, default=None)
-
-    @property
-    def significant_structure(self) -> tuple[str, Any] | None:
-        """``best_structure`` when it reaches ``SIGNIFICANT_SIGMA``."""
-        best = self.best_structure
-        return best if best is not None and best[1].significance_sigma >= SIGNIFICANT_SIGMA \
-            else None
-
-
-@dataclass(frozen=True)
-class Offset:
-    """The night's constant offset (cycles), its 1σ, where it comes from, its σ-significance."""
-
-    value: float
-    sigma: float
-    source: str
-    significance: float
-
+__all__ = ["diagnose", "usable_chunks"]
 
 def diagnose(
     chunks: list[ChunkOffset],
@@ -186,8 +127,8 @@ def diagnose(
     fits.jitter = _jitter(fits)
     if fits.jitter is not None:
         result["jitter_cycles"] = fits.jitter.excess_cycles
-    status, kind = _status(_effects(offset, fits), scale.cycles)
-    blind = _blind_spots(len(used), offset, fits.drift, scale.cycles)
+    status, kind = status_and_kind(effects(offset, fits), scale.cycles)
+    blind = blind_spots(len(used), offset, fits.drift, scale.cycles)
     if blind and status == "OK":
         status, kind = "WARN", "insufficient_signal"
     result.update(_model_numbers(fits, used, scale.nu))
@@ -324,69 +265,6 @@ def _model_values(name: str, fit: Any, t: np.ndarray) -> np.ndarray:
     return fit.offset_cycles + fit.amplitude_cycles * np.cos(
         2.0 * np.pi * (x / fit.period_s - fit.phase_cycles)
     )
-
-
-def _effects(offset: Offset, fits: Fits) -> list[tuple[str, float, float]]:
-    """(kind, significance σ, size in cycles) of every effect that competes."""
-    effects: list[tuple[str, float, float]] = [("offset", offset.significance,
-                                                abs(offset.value))]
-    if fits.step is not None:
-        effects.append(("step", fits.step.significance_sigma, abs(fits.step.size_cycles)))
-    if fits.drift is not None:
-        effects.append(("drift", fits.drift.significance_sigma, fits.drift.excursion_cycles))
-    if fits.wobble is not None:
-        effects.append(("wobble", fits.wobble.significance_sigma,
-                        2.0 * fits.wobble.amplitude_cycles))
-    if fits.smear is not None:
-        effects.append(("smeared", fits.smear.significance_sigma, fits.smear.width_cycles))
-    if fits.jitter is not None and fits.jitter.model == "constant":
-        effects.append(("smeared", fits.jitter.significance_sigma, fits.jitter.excess_cycles))
-    # only the most significant structured model competes: the others fit the same data
-    best = fits.best_structure
-    if best is not None:
-        effects = [e for e in effects if e[0] not in _STRUCTURES or e[0] == best[0]]
-    return effects
-
-
-def _level(significance: float, size: float, tol: float) -> str | None:
-    """Status an effect implies: None when not even marginal."""
-    if significance < MARGINAL_SIGMA:
-        return None
-    if size > tol:
-        return "FAIL" if significance >= SIGNIFICANT_SIGMA else "WARN"
-    if size > WELL_INSIDE * tol:
-        return "WARN"
-    return "OK"
-
-
-def _status(effects: list[tuple[str, float, float]], tol: float) -> tuple[str, str]:
-    """(status, kind): the worst status, the most specific kind among equals."""
-    rated = [(name, significance, size, level) for name, significance, size in effects
-             if (level := _level(significance, size, tol)) is not None]
-    if not rated:
-        return "OK", "none"
-    top = max(rated, key=lambda r: (_RANK[r[3]], _PRIORITY[r[0]] if r[3] != "OK" else 0, r[1]))
-    status = top[3]
-    significant = [r for r in rated if r[1] >= SIGNIFICANT_SIGMA]
-    if status == "OK" and not significant:
-        return status, "none"
-    if status == "OK":
-        top = max(significant, key=lambda r: (_PRIORITY[r[0]], r[1]))
-    return status, top[0]
-
-
-def _blind_spots(n_used: int, offset: Offset, drift: DriftFit | None, tol: float) -> list[str]:
-    """Reasons a tolerance-sized offset or drift could not be seen at 3σ tonight."""
-    blind = []
-    if n_used < MIN_CHUNKS:
-        blind.append(f"only {n_used} usable chunks (need {MIN_CHUNKS} for drift and step)")
-    if offset.sigma > tol / 3.0:
-        blind.append(f"offset error {offset.sigma:.4f} cycles > tolerance/3")
-    # statistical reach only: the model's scatter scaling is removed
-    drift_reach = drift.rate_sigma_cycles_per_s / drift.scale * drift.span_s if drift else 0.0
-    if drift_reach > tol / 3.0:
-        blind.append(f"drift error over the night {drift_reach:.4f} cycles > tolerance/3")
-    return blind
 
 
 def _model_numbers(fits: Fits, used: list[ChunkOffset], nu: float) -> dict[str, Any]:

@@ -3,7 +3,8 @@
 Statuses are OK, WARN and FAIL; the kinds name the effect reported (see
 :mod:`turnstamp.core.clock.diagnose` for how they are chosen). An effect is real
 from ``SIGNIFICANT_SIGMA`` and marginal from ``MARGINAL_SIGMA`` (one-sided Gaussian
-σ after trials); its size against the tolerance sets the status.
+σ after trials); its size against the tolerance sets the status. ``Tolerance``,
+``Fits`` and ``Offset`` carry the diagnosis's intermediate results between its rooms.
 """
 
 from __future__ import annotations
@@ -26,6 +27,10 @@ __all__ = [
     "MAX_CHUNK_SIGMA",
     "MIN_CHUNKS",
     "MIN_WOBBLE_CHUNKS",
+    "STRUCTURES",
+    "Tolerance",
+    "Fits",
+    "Offset",
     "ClockVerdict",
 ]
 
@@ -41,6 +46,61 @@ MIN_CHUNKS = 4
 """Fewest usable chunks for the drift and step models (2 on each side of a step)."""
 MIN_WOBBLE_CHUNKS = 8
 """Fewest usable chunks for the wobble scan."""
+STRUCTURES = ("step", "drift", "wobble")
+"""The structured models of the offset series (as against offset and smear)."""
+
+
+@dataclass(frozen=True)
+class Tolerance:
+    """The spin frequency ``nu`` (Hz) and the effective tolerance, in cycles and µs."""
+
+    nu: float
+    cycles: float
+    us: float
+
+    @property
+    def text(self) -> str:
+        return f"tolerance {self.cycles:.4f} cycles = {self.us:.1f} µs at {self.nu:.6g} Hz"
+
+
+@dataclass
+class Fits:
+    """The unwrapped chunk series (t in s, y and sig in cycles) and the models fitted."""
+
+    t: np.ndarray
+    y: np.ndarray
+    sig: np.ndarray
+    constant: ConstantFit | None = None
+    drift: DriftFit | None = None
+    step: StepFit | None = None
+    wobble: WobbleFit | None = None
+    smear: SmearFit | None = None
+    jitter: JitterFit | None = None
+    chi2: dict[str, dict[str, float]] = field(default_factory=dict)
+
+    @property
+    def best_structure(self) -> tuple[str, Any] | None:
+        """The most significant of step, drift and wobble (name, fit), if any was fitted."""
+        fitted = [(name, getattr(self, name)) for name in STRUCTURES
+                  if getattr(self, name) is not None]
+        return max(fitted, key=lambda item: item[1].significance_sigma, default=None)
+
+    @property
+    def significant_structure(self) -> tuple[str, Any] | None:
+        """``best_structure`` when it reaches ``SIGNIFICANT_SIGMA``."""
+        best = self.best_structure
+        return best if best is not None and best[1].significance_sigma >= SIGNIFICANT_SIGMA \
+            else None
+
+
+@dataclass(frozen=True)
+class Offset:
+    """The night's constant offset (cycles), its 1σ, where it comes from, its σ-significance."""
+
+    value: float
+    sigma: float
+    source: str
+    significance: float
 
 
 @dataclass(frozen=True)

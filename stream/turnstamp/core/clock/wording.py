@@ -10,12 +10,11 @@ from __future__ import annotations
 from typing import TYPE_CHECKING, Any
 
 from ..cycles import cycles_to_us
-from .verdict import MARGINAL_SIGMA, MAX_CHUNK_SIGMA
+from .verdict import MARGINAL_SIGMA, MAX_CHUNK_SIGMA, STRUCTURES, Fits, Offset, Tolerance
 
 if TYPE_CHECKING:
     from ..templatefit import OffsetFit
     from .chunks import ChunkOffset
-    from .diagnose import Fits, Offset, Tolerance
     from .mistakes import Explanation
 
 __all__ = ["no_signal_lines", "verdict_lines"]
@@ -29,7 +28,6 @@ _HEADS = {
     "smeared": "smeared profile",
     "insufficient_signal": "too little signal to judge",
 }
-_STRUCTURES = ("step", "drift", "wobble")
 
 
 def _fmt_us(cycles: float, nu: float) -> str:
@@ -118,7 +116,7 @@ def _mistake_lines(matched: tuple[str, float, float, list[Explanation]], nu: flo
 def _structure_lines(kind: str, fits: Fits, result: dict[str, Any], first_mid_ns: int,
                      nu: float) -> list[str]:
     """One structured model described: the chosen kind, or else the best if marginal."""
-    shown = kind if kind in _STRUCTURES else None
+    shown = kind if kind in STRUCTURES else None
     best = fits.best_structure
     if shown is None and best is not None and best[1].significance_sigma >= MARGINAL_SIGMA:
         shown = best[0]
@@ -154,7 +152,7 @@ def _scatter_lines(kind: str, fits: Fits, nu: float) -> list[str]:
     """The smear of the night profile and the extra chunk scatter, when worth saying."""
     lines = []
     smear, jitter = fits.smear, fits.jitter
-    structured = kind in _STRUCTURES
+    structured = kind in STRUCTURES
     if smear is not None and (kind == "smeared" or (
             not structured and smear.significance_sigma >= MARGINAL_SIGMA)):
         lines.append(
