@@ -159,8 +159,8 @@ def test_diurnal_roemer_amplitude_of_a_ground_site(kernel, orientation, leaps):
 
 def test_parallax_term_scales_as_one_over_distance(kernel, orientation, leaps, site):
     # wave-front curvature |r_perp|^2 / (2 c d) (Backer & Hellings 1986): 1 au at 1 kpc
-    # gives (1 au)^2 / (2 c · 1 kpc) = 1.20962 µs (au of IAU 2012 Resolution B2, parsec of
-    # IAU 2015 Resolution B2).
+    # gives (1 au)^2 / (2 c · 1 kpc) = 1.20962 µs (au of IAU 2012 Resolution B2; parsec =
+    # 648000/π au, IAU 2015 Resolution B2, from memory).
     start, _ = night_tt(leaps)
     far = SkyPosition(123.456, 23.45, parallax_mas=1.0)
     terms = BarycentreCalculator(site, far, kernel, orientation).terms(np.array([start]))
