@@ -109,6 +109,7 @@ class SkyPosition:
 
     @property
     def distance_m(self) -> float:
+        """Distance to the source (m) from the parallax; inf when the parallax is 0."""
         if self.parallax_mas == 0:
             return np.inf
         return erfa.DAU / (self.parallax_mas * MAS)
@@ -197,6 +198,7 @@ class BarycentreCalculator:
         return terms["total"], terms["flags"]
 
     def provenance(self) -> dict[str, str]:
+        """Observer, target, ephemeris and Earth-orientation source, as text for metadata."""
         observer = self.observer
         if isinstance(observer, GroundSite):
             where = (f"ground site {observer.name}: lat {observer.latitude_deg} deg, "

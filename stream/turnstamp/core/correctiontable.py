@@ -41,13 +41,16 @@ class CorrectionTable:
 
     @property
     def degree(self) -> int:
+        """Degree of the Chebyshev series of each segment."""
         return self.coefficients.shape[0] - 1
 
     @property
     def stop_ns(self) -> int:
+        """End of the coverage (TT ns, exclusive)."""
         return self.start_ns + self.segment_ns * self.coefficients.shape[1]
 
     def covers(self, start_ns: int, stop_ns: int) -> bool:
+        """True when [start_ns, stop_ns] (TT ns) lies inside the table."""
         return self.start_ns <= start_ns and stop_ns <= self.stop_ns
 
     @classmethod
@@ -122,6 +125,7 @@ class CorrectionTable:
 
     @classmethod
     def from_columns(cls, segment_start_ns, coefficients_s, flags, provenance) -> CorrectionTable:
+        """Rebuild a table from ``to_columns`` output (segments evenly spaced)."""
         starts = np.asarray(segment_start_ns, dtype=np.int64)
         steps = np.diff(starts)
         if starts.size == 0 or (steps.size and np.any(steps != steps[0])):
@@ -174,14 +178,17 @@ class TableSet:
 
     @property
     def tables(self) -> tuple[CorrectionTable, ...]:
+        """The pieces, in time order."""
         return tuple(self._tables)
 
     @property
     def start_ns(self) -> int | None:
+        """Start of the first piece (TT ns), None when empty."""
         return self._tables[0].start_ns if self._tables else None
 
     @property
     def stop_ns(self) -> int | None:
+        """End of the last piece (TT ns, exclusive), None when empty."""
         return self._tables[-1].stop_ns if self._tables else None
 
     def add(self, table: CorrectionTable) -> None:

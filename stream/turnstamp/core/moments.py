@@ -256,6 +256,7 @@ class PhaseMoments:
         return self._add_in_place(other)
 
     def copy(self) -> PhaseMoments:
+        """An independent copy."""
         new = PhaseMoments.__new__(PhaseMoments)
         new.harmonics = self.harmonics
         new.bins = self.bins
@@ -271,6 +272,7 @@ class PhaseMoments:
 
     @property
     def is_empty(self) -> bool:
+        """True before any event was added."""
         return self.count == 0
 
     def __repr__(self) -> str:

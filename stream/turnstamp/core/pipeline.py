@@ -44,7 +44,7 @@ from .templatefit import fit_offset
 from .timebase import NS_PER_S, ClockCorrection, LeapSecondTable, site_tt
 from .timebinned import TimeBinnedMoments
 
-__all__ = ["PipelineSettings", "FeedResult", "Counters", "TaggedRows", "Pipeline"]
+__all__ = ["PipelineSettings", "FeedResult", "TaggedRows", "Pipeline"]
 
 
 @dataclass(frozen=True)
@@ -138,7 +138,7 @@ class Pipeline:
             TimeBinnedMoments(s.interval_ns, s.harmonics, s.bins, s.retain_ns)
             for _ in target.recipes]
         self.reservoirs[target.name] = Reservoir(s.reservoir_events)
-        self.phase_reference[target.name] = _phase_reference(target.tagger)
+        self.phase_reference[target.name] = target.tagger.phase_reference
         self._chunk_cache.pop(target.name, None)
         self._refolds.pop(target.name, None)
 
@@ -147,12 +147,13 @@ class Pipeline:
         models change the phase reference; returns True when they did."""
         target = self.targets[name]
         target.tagger = tagger
-        if _phase_reference(tagger) != self.phase_reference[name]:
+        if tagger.phase_reference != self.phase_reference[name]:
             self._reset_statistics(target)
             return True
         return False
 
     def replace_template(self, name: str, template: PulseTemplate | None) -> None:
+        """Swap a target's pulse template (None: no clock check for it)."""
         self.targets[name].template = template
 
     # -- the hot path -------------------------------------------------------------
@@ -368,6 +369,7 @@ class Pipeline:
 
     # -- checkpoints --------------------------------------------------------------
     def to_state(self) -> dict:
+        """Checkpoint: counters and every target's moments, JSON-serialisable."""
         return {
             "version": STATE_VERSION,
             "counters": vars(self.counters).copy(),
@@ -393,7 +395,3 @@ class Pipeline:
             self.moments[name] = [TimeBinnedMoments.from_state(m)
                                   for m in saved["moments"]]
         return notes
-
-
-def _phase_reference(tagger: TargetTagger) -> str:
-    return "+".join(sorted({p.model.phase_reference_key() for p in tagger.calculators}))

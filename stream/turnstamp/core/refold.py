@@ -56,6 +56,7 @@ class Reservoir:
         self._next = 0
 
     def add(self, tt_ns, correction_s, weight) -> None:
+        """Append events (the oldest are overwritten once the ring is full)."""
         n = tt_ns.size
         if n >= self.size:
             tt_ns, correction_s, weight = tt_ns[-self.size:], correction_s[-self.size:], \

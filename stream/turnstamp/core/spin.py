@@ -186,6 +186,7 @@ class SpinModel(BaseModel):
         return hashlib.sha256(blob.encode()).hexdigest()[:20]
 
     def sky_position_args(self) -> dict:
+        """Keyword arguments of ``barycentre.SkyPosition`` for this model's target."""
         t = self.target
         return {
             "right_ascension_deg": t.right_ascension_deg,

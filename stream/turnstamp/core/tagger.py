@@ -62,7 +62,13 @@ class TargetTagger:
         self._stops = np.array([p.valid_until_ns for p in self.calculators], dtype=np.int64)
 
     @property
+    def phase_reference(self) -> str:
+        """Fingerprint of how the models define phase; folds with different ones do not add."""
+        return "+".join(sorted({p.model.phase_reference_key() for p in self.calculators}))
+
+    @property
     def model_ids(self) -> list[str]:
+        """Model ids in the order of ``calculators`` (what ``model_index`` counts)."""
         return [p.model_id for p in self.calculators]
 
     def choose_models(self, tdb_ns: np.ndarray) -> np.ndarray:

@@ -103,6 +103,7 @@ class TargetSetup:
 
     @property
     def name(self) -> str:
+        """The target's name (that of its tagger)."""
         return self.tagger.name
 
 

@@ -157,6 +157,7 @@ class TimeBinnedMoments:
 
     @property
     def is_empty(self) -> bool:
+        """True before any event was added."""
         return self._expired.is_empty and all(m.is_empty for m in self._intervals.values())
 
     def __len__(self) -> int:
@@ -199,6 +200,7 @@ class TimeBinnedMoments:
         return self
 
     def copy(self) -> TimeBinnedMoments:
+        """An independent copy."""
         new = TimeBinnedMoments(self.interval_ns, self.harmonics, self.bins, self.retain_ns)
         new.latest_ns = self.latest_ns
         new._intervals = {i: m.copy() for i, m in self._intervals.items()}

@@ -188,8 +188,9 @@ def _series(used: list[ChunkOffset], night: OffsetFit | None, result: dict) -> F
     y = y - math.floor(float(w @ y / w.sum()) + 0.5)  # weighted mean in [−0.5, 0.5)
     result["span_s"] = float(t[-1] - t[0])
     result["reference_ns"] = int(mids[0] + round(float(w @ t / w.sum()) * 1e9))
-    fits = Fits(t, y, sig, constant=fit_constant(t, y, sig))
-    fits.chi2["constant"] = {"chi2": fits.constant.chi2, "dof": fits.constant.dof}
+    constant = fit_constant(t, y, sig)
+    fits = Fits(t, y, sig, constant=constant)
+    fits.chi2["constant"] = {"chi2": constant.chi2, "dof": constant.dof}
     return fits
 
 

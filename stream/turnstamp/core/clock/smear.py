@@ -21,6 +21,7 @@ import numpy as np
 from scipy import optimize, special
 
 from ..significance import sigma_from_log_p
+from ..template import PulseTemplate
 from ..templatefit import OffsetFit
 from ..templatenoise import in_phase_covariance
 
@@ -47,7 +48,7 @@ class SmearFit:
     significance_sigma: float
 
 
-def _whitened_profile(night: OffsetFit, m: int):
+def _whitened_profile(night: OffsetFit, template: PulseTemplate, m: int):
     """χ²(v) of the in-phase amplitudes, whitened by the photon-noise covariance.
 
     Returns a function of the smear variance v (cycles²) giving (χ², amplitude b₀).
@@ -57,7 +58,7 @@ def _whitened_profile(night: OffsetFit, m: int):
     z = np.real(night.data_coefficients * np.conj(s) * np.exp(-2j * np.pi * k * night.shift_cycles))
     base = np.abs(s) ** 2
     pulsed = min(max(night.amplitude / night.sum_w, 0.0), 1.0) if night.sum_w > 0 else 0.0
-    cov = night.sum_w2 * in_phase_covariance(night.template, m, pulsed)
+    cov = night.sum_w2 * in_phase_covariance(template, m, pulsed)
     cov = cov + np.eye(m) * 1e-12 * float(np.trace(cov)) / m  # keep it positive definite
     chol = np.linalg.cholesky(cov)
     zw = np.linalg.solve(chol, z)
@@ -101,7 +102,7 @@ def fit_smear(night: OffsetFit) -> SmearFit:
     m = int(night.harmonics_used)
     if night.template is None or not math.isfinite(night.shift_cycles) or m < 2:
         return SmearFit(0.0, math.inf, 0.0, math.inf, float("nan"), m, 0.0, 0.0)
-    profile = _whitened_profile(night, m)
+    profile = _whitened_profile(night, night.template, m)
     v_best = _best_variance(profile, m)
     chi2_best, amplitude = profile(v_best)
     chi2_zero = profile(0.0)[0]

@@ -60,6 +60,7 @@ class Tolerance:
 
     @property
     def text(self) -> str:
+        """The tolerance in words, as the verdict lines quote it."""
         return f"tolerance {self.cycles:.4f} cycles = {self.us:.1f} µs at {self.nu:.6g} Hz"
 
 
