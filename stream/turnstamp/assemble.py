@@ -18,17 +18,19 @@ import numpy as np
 
 from . import __version__
 from .config import BarycentreConfig, SiteConfig, TargetConfig
-from .core.barycentre import BarycentreCalculator, CorrectionTable, SkyPosition
+from .core.barycentre import BarycentreCalculator, SkyPosition
+from .core.correctiontable import CorrectionTable
 from .core.earth import EarthOrientation, GroundSite, OrbitTrack
-from .core.pipeline import Recipe, TargetSetup
-from .core.spin import PhasePredictor, SpinModel
+from .core.phase import PhaseCalculator
+from .core.spin import SpinModel
 from .core.tagger import TargetTagger
+from .core.targets import Recipe, TargetSetup
 from .core.timebase import NS_PER_S, ClockCorrection, LeapSecondTable, parse_instant
 from .errors import ConfigError
 from .files.bundled import bundled_leap_seconds, load_earth_orientation, open_ephemeris
 from .files.inputs import load_spin_model, load_template
 
-__all__ = ["Environment", "TableCache", "load_predictors", "build_target", "recipe_from"]
+__all__ = ["Environment", "TableCache", "load_phase_calculators", "build_target", "recipe_from"]
 
 log = logging.getLogger(__name__)
 
@@ -186,12 +188,12 @@ def _read_table(path: Path, provenance: dict[str, str]) -> CorrectionTable | Non
         arrow["flags"].to_numpy(), stored)
 
 
-def load_predictors(paths) -> list[PhasePredictor]:
+def load_phase_calculators(paths) -> list[PhaseCalculator]:
     models: list[SpinModel] = [load_spin_model(p) for p in paths]
     ids = [m.model_id for m in models]
     if len(set(ids)) != len(ids):
         raise ConfigError("models", ids, "model_id must be unique within a target")
-    return [PhasePredictor(m) for m in models]
+    return [PhaseCalculator(m) for m in models]
 
 
 def recipe_from(config) -> Recipe:
@@ -200,17 +202,17 @@ def recipe_from(config) -> Recipe:
 
 
 def build_target(config: TargetConfig, table: CorrectionTable | None = None,
-                 predictors: list[PhasePredictor] | None = None) -> TargetSetup:
-    predictors = predictors or load_predictors(config.models)
-    positions = {json.dumps(p.model.sky_position_args(), sort_keys=True) for p in predictors}
+                 calculators: list[PhaseCalculator] | None = None) -> TargetSetup:
+    calculators = calculators or load_phase_calculators(config.models)
+    positions = {json.dumps(p.model.sky_position_args(), sort_keys=True) for p in calculators}
     if len(positions) > 1:
-        raise ConfigError(f"targets.{config.name}.models", [p.model_id for p in predictors],
+        raise ConfigError(f"targets.{config.name}.models", [p.model_id for p in calculators],
                           "all models of a target must give the same sky position")
-    position = SkyPosition(**predictors[0].model.sky_position_args())
+    position = SkyPosition(**calculators[0].model.sky_position_args())
     recipes = [recipe_from(r) for r in config.recipes]
     names = [r.name for r in recipes]
     clock = names.index(config.clock_check_recipe) if config.clock_check_recipe else 0
     return TargetSetup(
-        tagger=TargetTagger(config.name, predictors, table), position=position,
+        tagger=TargetTagger(config.name, calculators, table), position=position,
         recipes=recipes, template=load_template(config.template) if config.template else None,
         region_radius_deg=config.region_radius_deg, clock_recipe=clock)

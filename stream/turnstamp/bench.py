@@ -97,7 +97,7 @@ def bench_tagging(sizes=(10**6, 10**7), astropy_events=2000, repeats=3) -> dict:
     position = target.position
     sky = SkyCoord(position.right_ascension_deg, position.declination_deg, unit="deg")
     kernel = str(default_kernel_path())
-    predictor = tagger.predictors[0]
+    calculator = tagger.calculators[0]
 
     days, rest = np.divmod(sample, NS_PER_DAY)
 
@@ -107,7 +107,7 @@ def bench_tagging(sizes=(10**6, 10**7), astropy_events=2000, repeats=3) -> dict:
         tdb = t.tdb + t.light_travel_time(sky, ephemeris=kernel)
         seconds = (tdb.jd1 - 2_451_545.0) * 86_400 + tdb.jd2 * 86_400
         whole = np.floor(seconds)
-        predictor.phase((whole * NS_PER_S).astype(np.int64), seconds - whole)
+        calculator.phase((whole * NS_PER_S).astype(np.int64), seconds - whole)
 
     seconds = _best_of(1, astropy_route)
     out["astropy_direct_events_per_s"] = astropy_events / seconds
@@ -118,7 +118,7 @@ def bench_tagging(sizes=(10**6, 10**7), astropy_events=2000, repeats=3) -> dict:
 
 
 def bench_moments(n=10**7, baseline_n=10**6, repeats=3) -> dict:
-    from .core.stats import PhaseMoments
+    from .core.moments import PhaseMoments
 
     rng = np.random.default_rng(2)
     phases = rng.random(n)

@@ -48,7 +48,7 @@ def cmd_tag(args) -> int:
 
 
 def cmd_model(args) -> int:
-    from .core.spin import derived_quantities
+    from .core.spin import spin_down_summary
     from .files.inputs import load_spin_model
 
     status = 0
@@ -57,7 +57,7 @@ def cmd_model(args) -> int:
         if args.action == "check":
             print(f"{path}: ok ({model.model_id}, phase reference {model.phase_reference_key()})")
             continue
-        derived = derived_quantities(model)
+        summary = spin_down_summary(model)
         target = model.target
         print(f"{model.model_id}: {target.name} "
               f"(ra {target.right_ascension_deg} deg, dec {target.declination_deg} deg)")
@@ -65,7 +65,7 @@ def cmd_model(args) -> int:
                  "spin_down_power_erg_per_s": "erg/s", "characteristic_age_yr": "yr",
                  "surface_dipole_field_gauss": "G", "braking_index": "",
                  "valid_from_mjd_tdb": "MJD (TDB)", "valid_until_mjd_tdb": "MJD (TDB)"}
-        for key, value in derived.items():
+        for key, value in summary.items():
             shown = "n/a" if value is None else (f"{value:.10g}" if isinstance(value, float)
                                                  else str(value))
             print(f"  {key.replace('_', ' '):32s} {shown} {units.get(key, '')}")
@@ -104,8 +104,9 @@ def cmd_table(args) -> int:
 
 
 def cmd_stack(args) -> int:
-    from .core import stats
-    from .core.pipeline import stack_states
+    from .core.periodicity import h_test
+    from .core.stacking import stack_states
+    from .core.timebinned import TimeBinnedMoments
     from .service.checkpoint import read_checkpoint
 
     states, labels = [], []
@@ -119,8 +120,8 @@ def cmd_stack(args) -> int:
     for name, target in merged["targets"].items():
         print(f"{name}: {len(target['runs'])} run(s), phase reference {target['phase_reference']}")
         for recipe, state in zip(target["recipes"], target["moments"], strict=True):
-            moments = stats.TimeBinnedMoments.from_state(state).total()
-            h = stats.h_test(moments)
+            moments = TimeBinnedMoments.from_state(state).total()
+            h = h_test(moments)
             print(f"  {recipe:12s} {moments.count:>12,} events  H = {h.statistic:10.1f} "
                   f"({h.harmonics} harmonics)  {h.sigma:6.2f} sigma")
     if args.out:
@@ -257,7 +258,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--quiet", action="store_true", help="no progress line")
     p.set_defaults(func=cmd_tag)
 
-    p = sub.add_parser("model", help="check spin models or show their derived quantities")
+    p = sub.add_parser("model", help="check spin models or show their spin-down summary")
     p.add_argument("action", choices=["show", "check"])
     p.add_argument("models", nargs="+")
     p.set_defaults(func=cmd_model)

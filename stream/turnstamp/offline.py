@@ -22,7 +22,7 @@ import pyarrow.parquet as pq
 
 from .assemble import Environment, TableCache, build_target
 from .config import BarycentreConfig, RecipeConfig, TargetConfig
-from .core.barycentre import TableSet
+from .core.correctiontable import TableSet
 from .core.pipeline import Pipeline, PipelineSettings
 from .core.timebase import NS_PER_DAY as DAY_NS
 from .core.timebase import NS_PER_S, Scale, to_tt

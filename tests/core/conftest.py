@@ -1,7 +1,9 @@
 """Tables shared by the core tests (read once per session from installed packages)."""
 
 import pytest
+from sky_fixtures import TARGET
 
+from turnstamp.core.barycentre import BarycentreCalculator
 from turnstamp.core.earth import GroundSite
 from turnstamp.files.bundled import bundled_leap_seconds, load_earth_orientation, open_ephemeris
 
@@ -27,3 +29,9 @@ def kernel():
 @pytest.fixture(scope="session")
 def site():
     return TEST_SITE
+
+
+@pytest.fixture(scope="session")
+def calculator(site, kernel, orientation):
+    """The direct barycentre computation for the test site and the invented target."""
+    return BarycentreCalculator(site, TARGET, kernel, orientation)

@@ -4,10 +4,10 @@ the clock-chain faults of a simulated night diagnosed through the whole chain.""
 import numpy as np
 import pytest
 
-from turnstamp.core import stats
 from turnstamp.core.batch import EventBatch
 from turnstamp.core.flags import Quality
 from turnstamp.core.pipeline import Pipeline, PipelineSettings
+from turnstamp.core.significance import sigma_from_log_p, trials_log_p
 from turnstamp.core.simulate import Fault, NightPlan, simulate_night
 from turnstamp.core.timebase import NS_PER_S, Scale, from_tt
 
@@ -109,13 +109,13 @@ def test_events_outside_model_validity_are_flagged_and_kept_out_of_statistics(
         demo_env, lantern, night_start_tt):
     from decimal import Decimal
 
-    from turnstamp.core.spin import PhasePredictor
+    from turnstamp.core.phase import PhaseCalculator
     from turnstamp.core.tagger import TargetTagger
 
-    model = lantern.tagger.predictors[0].model
+    model = lantern.tagger.calculators[0].model
     short = model.model_copy(update={"validity": model.validity.model_copy(update={
         "end_mjd_tdb": Decimal("61376.0")})})  # ends before the simulated night
-    lantern.tagger = TargetTagger("lantern", [PhasePredictor(short)], lantern.tagger.table)
+    lantern.tagger = TargetTagger("lantern", [PhaseCalculator(short)], lantern.tagger.table)
     pipeline = make_pipeline(demo_env, lantern)
     archive = pipeline.feed(night(demo_env, lantern, night_start_tt, seconds=10)[0])
     flags = archive.archive["lantern"]["quality_flags"]
@@ -159,7 +159,7 @@ def test_trials_and_post_trials_significance(demo_env, lantern, night_start_tt):
         pipeline.feed(batch)
     row = next(r for r in pipeline.significance() if r["window"] == "cumulative")
     assert row["trials"] == 2
-    expected = stats.sigma_from_log_p(stats.trials_log_p(row["h_log10_p"] * np.log(10), 2))
+    expected = sigma_from_log_p(trials_log_p(row["h_log10_p"] * np.log(10), 2))
     assert row["h_sigma_post_trials"] == pytest.approx(expected)
     assert row["h_sigma_post_trials"] < row["h_sigma"]
 
@@ -169,7 +169,7 @@ def test_stacking_nights_equals_one_pass_and_refuses_other_phase_references(
     import copy
     import json
 
-    from turnstamp.core.pipeline import stack_states
+    from turnstamp.core.stacking import stack_states
     from turnstamp.errors import InputError
 
     first = make_pipeline(demo_env, lantern)

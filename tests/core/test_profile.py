@@ -1,9 +1,10 @@
 """Binned and harmonic pulse profiles and their summary numbers.
 
-Sources: REFERENCES.md §2.1 (empirical Fourier density; de Jager, Swanepoel &
-Raubenheimer 1986, from memory) and §2.2 (pulsed-fraction estimators with their
-closed-form and simulated check values); direct numpy computations on the events
-(oracle tests); scipy.integrate.quad; scipy.stats for binomial coverage limits.
+Sources, named beside each check: the empirical Fourier density of de Jager, Swanepoel
+& Raubenheimer 1986 (A&A 170, 187; from memory) with m from the H-test (de Jager,
+Raubenheimer & Swanepoel 1989, A&A 221, 180); pulsed-fraction estimators from standard
+Fourier identities; direct numpy computations on the events (oracle tests);
+scipy.integrate.quad; scipy.stats for binomial coverage limits.
 """
 
 from __future__ import annotations
@@ -16,6 +17,10 @@ import pytest
 from scipy import integrate
 from scipy import stats as scipy_stats
 
+from turnstamp.core.cycles import wrap_cycles
+from turnstamp.core.moments import PhaseMoments
+from turnstamp.core.peaks import PeakComponent
+from turnstamp.core.periodicity import h_test, z2_series
 from turnstamp.core.profile import (
     BinnedProfile,
     binned_profile,
@@ -23,8 +28,7 @@ from turnstamp.core.profile import (
     harmonic_profile,
     summarize_profile,
 )
-from turnstamp.core.stats import PhaseMoments, h_test, z2_series
-from turnstamp.core.template import PeakComponent, PulseTemplate, wrap_cycles
+from turnstamp.core.template import PulseTemplate
 
 
 def cosine_sample(n: int, amplitude: float, rng, phase0: float = 0.0) -> np.ndarray:
@@ -63,7 +67,8 @@ def test_binned_profile_is_the_weighted_histogram():
 
 
 def test_harmonic_density_matches_direct_sum_over_events():
-    # REFERENCES §2.1: f̂ = 1 + 2Σ(α_k cos 2πkφ + β_k sin 2πkφ), α_k = Σw cos/Σw (weighted)
+    # de Jager, Swanepoel & Raubenheimer 1986 (from memory): f̂ = 1 + 2Σ(α_k cos 2πkφ +
+    # β_k sin 2πkφ), α_k = Σw cos/Σw (weighted)
     rng = np.random.default_rng(2)
     phases = von_mises_template().sample(3000, rng)
     weights = rng.uniform(0.2, 1.0, phases.size)
@@ -114,9 +119,9 @@ def test_harmonic_profile_errors_match_monte_carlo_scatter():
 
 
 def test_pulsed_fractions_closed_form_and_simulation_reference():
-    # REFERENCES §2.2: f = 1 + A cos 2πφ has PF_min = PF_pp = A, PF_rms = A/√2 (exact);
-    # simulated A = 0.5, N = 2e5, m = 3 gave PF_rms 0.353464, PF_min 0.50351, PF_pp 0.50268;
-    # tolerance 3/√N
+    # f = 1 + A cos 2πφ has PF_min = PF_pp = A and PF_rms = A/√2 exactly (Fourier
+    # identities); a seeded sample of N = 2e5 events (A = 0.5, m = 3) must give them within
+    # a statistical tolerance of 3/√N
     rng = np.random.default_rng(5)
     n, a = 200_000, 0.5
     moments = PhaseMoments(bins=32).update(cosine_sample(n, a, rng, phase0=0.2))
@@ -135,8 +140,9 @@ def test_pulsed_fractions_closed_form_and_simulation_reference():
 
 
 def test_rms_pulsed_fraction_is_bias_corrected_and_weight_generalised():
-    # REFERENCES §2.2: PF_rms = sqrt((Z²_m − 2m)/N) for unit weights; with weights
-    # sqrt((Z²_m,w − 2m)·Σw²/(Σw)²) (Kerr normalisation of §1.4); scale invariant in w
+    # E[α_k² + β_k²] = 1/N under the null, so PF_rms = sqrt((Z²_m − 2m)/N) for unit
+    # weights (bias-corrected; a Fourier identity); with weights sqrt((Z²_m,w − 2m)·Σw²/(Σw)²)
+    # (the weighted Z² normalisation of Kerr 2011, ApJ 732, 38); scale invariant in w
     rng = np.random.default_rng(6)
     phases = cosine_sample(20_000, 0.3, rng)
     moments = PhaseMoments().update(phases)
@@ -148,13 +154,14 @@ def test_rms_pulsed_fraction_is_bias_corrected_and_weight_generalised():
     b = summarize_profile(PhaseMoments().update(phases, 7.5 * weights), 4)
     assert a.pulsed_fraction_rms == pytest.approx(b.pulsed_fraction_rms, rel=1e-9)
     assert a.peak_phase_cycles == pytest.approx(b.peak_phase_cycles, abs=1e-12)
-    # uniform phases: the bias correction keeps PF_rms near 0 (E[Z²_m] = 2m, §1.1)
+    # uniform phases: the bias correction keeps PF_rms near 0 (E[Z²_m] = 2m, the χ²_2m mean
+    # of Buccheri et al. 1983)
     flat = summarize_profile(PhaseMoments().update(rng.random(50_000)), 4)
     assert flat.pulsed_fraction_rms < math.sqrt(20 / 50_000)  # Z²_4 < 28: p(χ²_8) = 5e-4
 
 
 def test_default_harmonics_is_the_h_test_best_m():
-    # REFERENCES §2.1: use m = argmax of the H-test
+    # m = argmax of the H-test (de Jager, Raubenheimer & Swanepoel 1989)
     rng = np.random.default_rng(7)
     moments = PhaseMoments().update(von_mises_template(0.03, 0.6).sample(3000, rng))
     assert summarize_profile(moments).harmonics == h_test(moments).harmonics > 1

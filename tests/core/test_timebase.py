@@ -26,8 +26,9 @@ def astropy_tt_ns(t: Time) -> np.ndarray:
 
 
 def test_leap_second_table_matches_the_standard(leaps):
-    # REFERENCES.md §3.7 [src: erfa.dat / astropy LeapSeconds]: TAI-UTC = 10 s from
-    # 1972-01-01, 27 steps since, 37 s from 2017-01-01; the bundled table runs to mid-2027.
+    # IERS Bulletin C (as tabulated in erfa.dat and astropy's LeapSeconds): TAI-UTC = 10 s
+    # from 1972-01-01, 27 steps since, 37 s from 2017-01-01; the bundled table runs to
+    # mid-2027 (astropy-iers-data).
     since_1972 = leaps.start_mjd >= 41_317
     assert leaps.tai_minus_utc_s[since_1972][0] == 10
     assert np.count_nonzero(np.diff(leaps.tai_minus_utc_s[since_1972]) == 1) == 27
@@ -36,8 +37,8 @@ def test_leap_second_table_matches_the_standard(leaps):
 
 
 def test_across_a_leap_second_one_label_second_lasts_two_si_seconds(leaps):
-    # REFERENCES.md §3.7 [calc, astropy]: 2016-12-31T23:59:59 -> 2017-01-01T00:00:00 UTC
-    # spans 2 SI seconds.
+    # the leap second 2016-12-31T23:59:60 (IERS Bulletin C, from memory): 2016-12-31T23:59:59
+    # -> 2017-01-01T00:00:00 UTC spans 2 SI seconds (astropy agrees).
     before = parse_instant("2016-12-31T23:59:59")
     after = parse_instant("2017-01-01T00:00:00")
     tt, _ = to_tt(np.array([before, after]), Scale.UTC, leaps)
@@ -46,8 +47,8 @@ def test_across_a_leap_second_one_label_second_lasts_two_si_seconds(leaps):
 
 
 def test_fixed_offsets_between_continuous_scales(leaps):
-    # TT - TAI = 32.184 s exactly (IAU 1991; erfa.TTMTAI); GPS = TAI - 19 s (GPS epoch
-    # definition, IS-GPS-200, from memory; REFERENCES.md §3.7).
+    # TT - TAI = 32.184 s exactly (IAU 1991 Resolution A4, from memory; erfa.TTMTAI);
+    # GPS = TAI - 19 s (GPS epoch definition, IS-GPS-200, from memory).
     t = np.array([parse_instant("2026-12-01T22:00:00")])
     assert to_tt(t, Scale.TAI, leaps)[0][0] - t[0] == 32_184_000_000
     assert to_tt(t, Scale.GPS, leaps)[0][0] - t[0] == 51_184_000_000
@@ -56,8 +57,8 @@ def test_fixed_offsets_between_continuous_scales(leaps):
 
 
 def test_gps_seconds_count_matches_astropy_gps_format(leaps):
-    # astropy's 'gps' format: 630720013.0 s at 2000-01-01T00:00:00 UTC (REFERENCES.md §3.7,
-    # 7300 days + 13 leap seconds).
+    # astropy's 'gps' format (astropy.time.Time.gps): 630720013.0 s at 2000-01-01T00:00:00
+    # UTC, i.e. 7300 days + 13 leap seconds since 1980-01-06.
     utc = np.array([parse_instant("2000-01-01T00:00:00")])
     gps_label, _ = from_tt(to_tt(utc, Scale.UTC, leaps)[0], Scale.GPS, leaps)
     gps_epoch = parse_instant("1980-01-06T00:00:00")
@@ -66,8 +67,9 @@ def test_gps_seconds_count_matches_astropy_gps_format(leaps):
 
 
 def test_worked_example_of_the_standards_tools(leaps):
-    # SOFA "Time Scale and Calendar Tools" worked example (REFERENCES.md §3.3, from memory,
-    # reproduced there with erfa): UTC 2006-01-15 21:24:37.5 -> TAI 21:25:10.5, TT 21:25:42.684.
+    # SOFA "Time Scale and Calendar Tools" worked example (IAU SOFA documentation, from
+    # memory; erfa reproduces it): UTC 2006-01-15 21:24:37.5 -> TAI 21:25:10.5,
+    # TT 21:25:42.684.
     utc = np.array([parse_instant("2006-01-15T21:24:37.5")])
     tt, _ = to_tt(utc, Scale.UTC, leaps)
     tai, _ = from_tt(tt, Scale.TAI, leaps)

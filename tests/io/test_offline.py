@@ -52,12 +52,13 @@ def test_archive_phase_agrees_with_the_astropy_route_to_its_accuracy(tmp_path, e
                                                                      demo_env):
     # astropy (Time with a location, .tdb + light_travel_time with the same kernel) is good
     # to ~2 µs here (see test_barycentre): at 311 Hz that is 6e-4 cycles. Its route has no
-    # Shapiro delay and no parallax term, so ours are added to it (REFERENCES.md §3.1).
+    # Shapiro delay and no parallax term (astropy.time.Time.light_travel_time docstring), so
+    # ours are added to it (the decomposition of Backer & Hellings 1986, ARA&A 24, 537).
     from astropy.coordinates import EarthLocation, SkyCoord
     from astropy.time import Time
 
     from turnstamp.core.barycentre import BarycentreCalculator, SkyPosition
-    from turnstamp.core.spin import PhasePredictor
+    from turnstamp.core.phase import PhaseCalculator
     from turnstamp.core.timebase import NS_PER_S, format_instant
     from turnstamp.files.bundled import default_kernel_path
     from turnstamp.files.inputs import load_spin_model
@@ -82,8 +83,8 @@ def test_archive_phase_agrees_with_the_astropy_route_to_its_accuracy(tmp_path, e
         terms["shapiro"]
     assert 1e-6 < np.max(np.abs(terms["shapiro"])) < 2e-5  # the part astropy leaves out
     whole = np.floor(seconds)
-    _, theirs, _ = PhasePredictor(model).phase((whole * NS_PER_S).astype(np.int64),
-                                               seconds - whole)
+    _, theirs, _ = PhaseCalculator(model).phase((whole * NS_PER_S).astype(np.int64),
+                                                seconds - whole)
     difference = (archive["phase"].to_numpy() - theirs + 0.5) % 1 - 0.5
     assert np.max(np.abs(difference)) < 1e-3
 
@@ -130,4 +131,6 @@ def test_bad_rows_go_to_the_rejects_file(tmp_path, events):
     rejects = pa.ipc.open_file(str(tmp_path / "tagged.rejects.arrow")).read_all()
     assert archive.num_rows + rejects.num_rows == table.num_rows
     assert sorted(rejects["reason"].to_pylist()) == ["duplicate_event_id"]
-    assert 0 in archive["site_tt_ns"].to_numpy() - 64_184_000_000  # 2000: TT - UTC = 64.184 s
+    # in 2000 TT - UTC = 64.184 s: TAI - UTC = 32 s (IERS Bulletin C; erfa.dat) plus
+    # TT - TAI = 32.184 s (erfa.TTMTAI)
+    assert 0 in archive["site_tt_ns"].to_numpy() - 64_184_000_000

@@ -347,10 +347,12 @@ def test_offline_tagging_output_alone_gives_a_report(tmp_path, demo_env, lantern
     curve = target["significance"]["all"]
     assert curve["source"] == "computed from the archive rows"
     # the last point of the computed curve equals the H-test of the whole file
-    from turnstamp.core import stats
+    from turnstamp.core.moments import PhaseMoments
+    from turnstamp.core.periodicity import h_test
+    from turnstamp.core.significance import sigma_from_log_p
 
-    moments = stats.PhaseMoments().update(archive["phase"].to_numpy())
-    expected = stats.sigma_from_log_p(min(stats.h_test(moments).log_p, 0.0))
+    moments = PhaseMoments().update(archive["phase"].to_numpy())
+    expected = sigma_from_log_p(min(h_test(moments).log_p, 0.0))
     assert curve["windows"]["cumulative"]["h_sigma"][-1] == pytest.approx(expected, rel=1e-9)
     assert target["clock"] is None
     assert sorted(data["figures"]) == ["lantern-phase-time-map.png", "lantern-profile.png",

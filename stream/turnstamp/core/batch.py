@@ -9,14 +9,15 @@ Missing values arrive as sentinels: ``MISSING_TIME`` in ``time_ns``,
 from __future__ import annotations
 
 from dataclasses import dataclass, fields, replace
+from enum import IntEnum
 
 import numpy as np
 
 from ..errors import RejectReason
 from .timebase import Scale
 
-__all__ = ["EventBatch", "OPTIONAL_COLUMNS", "MISSING_TIME", "MISSING_ID", "VALUE_CHECKS",
-           "check_values"]
+__all__ = ["EventBatch", "OPTIONAL_COLUMNS", "MISSING_TIME", "MISSING_ID", "RejectCode", "REJECTS",
+           "describe_rejects", "check_values"]
 
 MISSING_TIME = np.iinfo(np.int64).min
 MISSING_ID = np.iinfo(np.uint64).max
@@ -81,44 +82,75 @@ class EventBatch:
         return replace(self, **{name: column[index] for name, column in self.columns().items()})
 
 
-VALUE_CHECKS: tuple[tuple[RejectReason, str], ...] = (
-    (RejectReason.BAD_VALUE, "event_id missing"),
-    (RejectReason.BAD_TIME, "time_ns missing"),
-    (RejectReason.BAD_TIME, "time_ns outside the plausible range"),
-    (RejectReason.BAD_VALUE, "energy_kev is not finite or negative"),
-    (RejectReason.BAD_VALUE, "ra_deg/dec_deg not finite, or dec_deg outside [-90, 90]"),
-    (RejectReason.BAD_VALUE, "score is not finite"),
-    (RejectReason.BAD_VALUE, "weight is not finite or negative"),
-    (RejectReason.DUPLICATE_EVENT_ID, "event_id repeated within the message"),
-)
-"""Code k (1-based) returned by ``check_values`` means ``VALUE_CHECKS[k - 1]``."""
+class RejectCode(IntEnum):
+    """Per-event reject codes (uint8 arrays); 0 accepts the event.
+
+    The value checks (``check_values``) give codes 1 to 8 (the first failing check
+    wins); the pipeline adds ``OUTSIDE_TABLE_COVERAGE`` for events no barycentre table
+    covers. ``REJECTS`` gives each code's reason and detail for the rejects output.
+    """
+
+    ACCEPTED = 0
+    MISSING_EVENT_ID = 1
+    MISSING_TIME = 2
+    IMPLAUSIBLE_TIME = 3
+    BAD_ENERGY = 4
+    BAD_DIRECTION = 5
+    BAD_SCORE = 6
+    BAD_WEIGHT = 7
+    REPEATED_EVENT_ID = 8
+    OUTSIDE_TABLE_COVERAGE = 9
+
+
+REJECTS: dict[RejectCode, tuple[RejectReason, str]] = {
+    RejectCode.MISSING_EVENT_ID: (RejectReason.BAD_VALUE, "event_id missing"),
+    RejectCode.MISSING_TIME: (RejectReason.BAD_TIME, "time_ns missing"),
+    RejectCode.IMPLAUSIBLE_TIME: (RejectReason.BAD_TIME, "time_ns outside the plausible range"),
+    RejectCode.BAD_ENERGY: (RejectReason.BAD_VALUE, "energy_kev is not finite or negative"),
+    RejectCode.BAD_DIRECTION: (RejectReason.BAD_VALUE,
+                               "ra_deg/dec_deg not finite, or dec_deg outside [-90, 90]"),
+    RejectCode.BAD_SCORE: (RejectReason.BAD_VALUE, "score is not finite"),
+    RejectCode.BAD_WEIGHT: (RejectReason.BAD_VALUE, "weight is not finite or negative"),
+    RejectCode.REPEATED_EVENT_ID: (RejectReason.DUPLICATE_EVENT_ID,
+                                   "event_id repeated within the message"),
+    RejectCode.OUTSIDE_TABLE_COVERAGE: (RejectReason.OUTSIDE_TABLE_COVERAGE,
+                                        "outside the barycentre table's coverage"),
+}
+"""Reason (for the rejects output) and detail of every code but ``ACCEPTED``."""
+
+
+def describe_rejects(codes: np.ndarray) -> tuple[list[str], list[str]]:
+    """Reason values and details of non-zero reject codes, in order."""
+    described = [REJECTS[RejectCode(int(c))] for c in codes]
+    return [reason.value for reason, _ in described], [detail for _, detail in described]
 
 
 def check_values(batch: EventBatch, earliest_ns: int, latest_ns: int) -> np.ndarray:
-    """Per-event value checks: uint8 codes, 0 = accepted, else 1 + index into
-    ``VALUE_CHECKS`` (the first failing check wins)."""
+    """Per-event value checks: uint8 ``RejectCode`` values, 0 = accepted (the first
+    failing check wins)."""
     n = len(batch)
     codes = np.zeros(n, np.uint8)
 
-    def refuse(mask, code):
+    def refuse(mask, code: RejectCode):
         np.copyto(codes, np.uint8(code), where=mask & (codes == 0))
 
     time = batch.time_ns
-    refuse(batch.event_id == MISSING_ID, 1)
-    refuse(time == MISSING_TIME, 2)
-    refuse((time < earliest_ns) | (time > latest_ns), 3)
+    refuse(batch.event_id == MISSING_ID, RejectCode.MISSING_EVENT_ID)
+    refuse(time == MISSING_TIME, RejectCode.MISSING_TIME)
+    refuse((time < earliest_ns) | (time > latest_ns), RejectCode.IMPLAUSIBLE_TIME)
     if batch.energy_kev is not None:
-        refuse(~(batch.energy_kev >= 0) | ~np.isfinite(batch.energy_kev), 4)
+        refuse(~(batch.energy_kev >= 0) | ~np.isfinite(batch.energy_kev), RejectCode.BAD_ENERGY)
     if batch.ra_deg is not None and batch.dec_deg is not None:
-        refuse(~np.isfinite(batch.ra_deg) | ~(np.abs(batch.dec_deg) <= 90), 5)
+        refuse(~np.isfinite(batch.ra_deg) | ~(np.abs(batch.dec_deg) <= 90),
+               RejectCode.BAD_DIRECTION)
     if batch.score is not None:
-        refuse(~np.isfinite(batch.score), 6)
+        refuse(~np.isfinite(batch.score), RejectCode.BAD_SCORE)
     if batch.weight is not None:
-        refuse(~(batch.weight >= 0) | ~np.isfinite(batch.weight), 7)
+        refuse(~(batch.weight >= 0) | ~np.isfinite(batch.weight), RejectCode.BAD_WEIGHT)
     if n > 1 and not np.all(batch.event_id[1:] > batch.event_id[:-1]):  # sorted: no repeats
         order = np.argsort(batch.event_id, kind="stable")
         same = batch.event_id[order][1:] == batch.event_id[order][:-1]
         repeated = np.zeros(n, bool)
         repeated[order[1:][same]] = True
-        refuse(repeated, 8)
+        refuse(repeated, RejectCode.REPEATED_EVENT_ID)
     return codes

@@ -11,10 +11,11 @@ Earth-orientation values (UT1 - UTC, x_p, y_p, dX, dY) come from an IERS table
 handed in by the shell; they are interpolated linearly in UT1 - TAI, which,
 unlike UT1 - UTC, has no one-second jumps at leap seconds.
 
-Errors if the table is wrong or short (REFERENCES.md §7): 1 ms of UT1 moves the
-site by ~0.46 m (1.55 ns of delay); ignoring polar motion of 0.3" costs up to
-31 ns. Past the end of the table the last values are held and the events are
-flagged EARTH_ORIENTATION_HELD (UT1 may then be off by up to ~1 s: ~1.4 µs).
+Errors if the table is wrong or short (worked out from the Earth's equatorial radius
+and rotation rate): 1 ms of UT1 moves the site by ~0.46 m (1.55 ns of delay);
+ignoring polar motion of 0.3" costs up to 31 ns. Past the end of the table the last
+values are held and the events are flagged EARTH_ORIENTATION_HELD (UT1 may then be
+off by up to ~1 s: ~1.4 µs).
 
 A space-borne observer gives its GCRS position (and velocity) as an orbit table;
 ``OrbitTrack`` interpolates it with cubic Hermite polynomials.

@@ -27,7 +27,7 @@ the variance at its flanks larger than that.
 The peak phase φ̂ solves f̂'(φ̂) = 0; by the delta method
 σ_φ = sqrt(Var f̂'(φ̂)) / |f̂''(φ̂)|.
 
-Pulsed fractions (REFERENCES §2.2): minimum-based 1 − min f̂; peak-to-trough
+Pulsed fractions (standard Fourier identities): minimum-based 1 − min f̂; peak-to-trough
 (max − min)/(max + min); RMS, bias-corrected, sqrt(2 Σ_{k≤m}(α_k² + β_k²) − 2m Σw²/(Σw)²),
 which for unit weights is sqrt((Z²_m − 2m)/N).
 
@@ -45,7 +45,8 @@ from typing import Any
 
 import numpy as np
 
-from turnstamp.core.stats import PhaseMoments, h_test, z2_series
+from turnstamp.core.moments import PhaseMoments
+from turnstamp.core.periodicity import h_test, z2_series
 
 __all__ = [
     "BinnedProfile",

@@ -121,7 +121,7 @@ def _phases_for(tagger: TargetTagger, tt_ns, sign_error: bool):
     phase = np.empty(tt_ns.size)
     for i in np.unique(index):
         rows = index == i
-        phase[rows] = tagger.predictors[i].phase(tt_ns[rows], correction[rows])[1]
+        phase[rows] = tagger.calculators[i].phase(tt_ns[rows], correction[rows])[1]
     return phase
 
 

@@ -13,8 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .barycentre import CorrectionTable, TableSet
-from .spin import PhasePredictor
+from .correctiontable import CorrectionTable, TableSet
+from .phase import PhaseCalculator
 
 __all__ = ["CHUNK", "TagResult", "TargetTagger"]
 
@@ -33,7 +33,7 @@ class TagResult:
     barycentric_tdb_ns: np.ndarray  # rounded to the nearest ns
     pulse_number: np.ndarray
     phase: np.ndarray
-    model_index: np.ndarray  # index into TargetTagger.predictors
+    model_index: np.ndarray  # index into TargetTagger.calculators
     flags: np.ndarray
     inside: np.ndarray
 
@@ -41,12 +41,12 @@ class TagResult:
 class TargetTagger:
     """Barycentre table plus spin models for one target."""
 
-    def __init__(self, name: str, predictors: list[PhasePredictor],
+    def __init__(self, name: str, calculators: list[PhaseCalculator],
                  table: CorrectionTable | TableSet | None = None):
-        if not predictors:
+        if not calculators:
             raise ValueError(f"target {name!r}: needs at least one spin model")
         self.name = name
-        self.predictors = sorted(predictors, key=lambda p: p.valid_from_ns)
+        self.calculators = sorted(calculators, key=lambda p: p.valid_from_ns)
         self.table = table
 
     @property
@@ -58,17 +58,23 @@ class TargetTagger:
     def table(self, value: CorrectionTable | TableSet | None) -> None:
         self._tables = value if isinstance(value, TableSet) else \
             TableSet(() if value is None else (value,))
-        self._starts = np.array([p.valid_from_ns for p in self.predictors], dtype=np.int64)
-        self._stops = np.array([p.valid_until_ns for p in self.predictors], dtype=np.int64)
+        self._starts = np.array([p.valid_from_ns for p in self.calculators], dtype=np.int64)
+        self._stops = np.array([p.valid_until_ns for p in self.calculators], dtype=np.int64)
+
+    @property
+    def phase_reference(self) -> str:
+        """Fingerprint of how the models define phase; folds with different ones do not add."""
+        return "+".join(sorted({p.model.phase_reference_key() for p in self.calculators}))
 
     @property
     def model_ids(self) -> list[str]:
-        return [p.model_id for p in self.predictors]
+        """Model ids in the order of ``calculators`` (what ``model_index`` counts)."""
+        return [p.model_id for p in self.calculators]
 
     def choose_models(self, tdb_ns: np.ndarray) -> np.ndarray:
         """Index of the model for each instant: the latest-starting one whose window
         contains it, else the one whose window is nearest."""
-        if len(self.predictors) == 1:
+        if len(self.calculators) == 1:
             return np.zeros(tdb_ns.shape, np.int64)
         row = np.clip(np.searchsorted(self._starts, tdb_ns, side="right") - 1, 0, None)
         inside = tdb_ns <= self._stops[row]
@@ -99,9 +105,9 @@ class TargetTagger:
                 correction = correction + extra_s[part]
             correction = np.where(inside, correction, 0.0)
             choice = self.choose_models(t)
-            for index in np.unique(choice) if len(self.predictors) > 1 else (0,):
-                rows = slice(None) if len(self.predictors) == 1 else choice == index
-                pulse, phase, model_flags = self.predictors[index].phase(t[rows], correction[rows])
+            for index in np.unique(choice) if len(self.calculators) > 1 else (0,):
+                rows = slice(None) if len(self.calculators) == 1 else choice == index
+                pulse, phase, model_flags = self.calculators[index].phase(t[rows], correction[rows])
                 out.pulse_number[part][rows] = pulse
                 out.phase[part][rows] = phase
                 flags[rows] |= model_flags

@@ -40,6 +40,7 @@ __all__ = [
     "INPUT_SCALES",
     "LeapSecondTable",
     "ClockCorrection",
+    "site_tt",
     "to_tt",
     "from_tt",
     "mjd_to_ns",
@@ -249,6 +250,37 @@ class ClockCorrection:
         outside = (ns < t0) | (ns > self.instants_ns[-1])
         flags = np.where(outside, Quality.CLOCK_CORRECTION_EXTRAPOLATED, 0).astype(np.uint32)
         return ns + whole, extra, flags
+
+
+def site_tt(readings_ns, scale: Scale | str, clock_chain, leaps: LeapSecondTable):
+    """TT at the site of instrument clock readings: the clock chain, then the scale.
+
+    Parameters
+    ----------
+    readings_ns : int64 array
+        Readings, ns since 2000-01-01T12:00:00 in ``scale``.
+    scale : Scale
+        The instrument's scale (after the clock chain).
+    clock_chain : sequence of ClockCorrection
+        Applied in order.
+    leaps : LeapSecondTable
+
+    Returns
+    -------
+    tt_ns : int64 array
+        TT instants, ns since 2000-01-01T12:00:00 TT.
+    extra_s : float64 array
+        Sub-nanosecond remainder of the clock corrections, seconds.
+    flags : uint32 array
+        Quality bits of the clock chain and the scale conversion.
+    """
+    flags = np.zeros(np.shape(readings_ns), np.uint32)
+    extra_s = np.zeros(np.shape(readings_ns))
+    for link in clock_chain:
+        readings_ns, extra_s, link_flags = link.apply(readings_ns, extra_s)
+        flags |= link_flags
+    tt_ns, scale_flags = to_tt(readings_ns, scale, leaps)
+    return tt_ns, extra_s, flags | scale_flags
 
 
 # -- calendar helpers (display, configuration and model files) -------------------

@@ -14,7 +14,7 @@ import pyarrow as pa
 
 from ..core.accounting import FeedResult
 from ..core.batch import EventBatch
-from ..core.pipeline import TargetSetup
+from ..core.targets import TargetSetup
 from ..files import schemas
 
 __all__ = ["archive_table", "archive_tables", "rejects_table", "message_reject_table",

@@ -16,7 +16,7 @@ import numpy as np
 
 from ..assemble import Environment, TableCache, build_target
 from ..config import ServiceConfig
-from ..core.barycentre import TableSet
+from ..core.correctiontable import TableSet
 from ..core.pipeline import Pipeline, PipelineSettings
 from ..core.timebase import NS_PER_S, Scale, parse_instant, to_tt, unix_to_ns
 from ..files import schemas

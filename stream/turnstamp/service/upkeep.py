@@ -12,7 +12,7 @@ from collections.abc import Iterable, MutableSequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 
-from ..assemble import TableCache, load_predictors
+from ..assemble import TableCache, load_phase_calculators
 from ..config import TargetConfig
 from ..core.pipeline import Pipeline
 from ..core.tagger import TargetTagger
@@ -84,11 +84,11 @@ class Upkeep:
         changes = []
         paths = [Path(p) for p in target.models]
         if force or any(_mtime(p) != self._mtimes.get(p) for p in paths):
-            predictors = load_predictors(paths)
+            calculators = load_phase_calculators(paths)
             for path in paths:
                 self._mtimes[path] = _mtime(path)
             table = self.pipeline.targets[target.name].tagger.table
-            tagger = TargetTagger(target.name, predictors, table)
+            tagger = TargetTagger(target.name, calculators, table)
             restarted = self.pipeline.replace_models(target.name, tagger)
             changes.append(f"{target.name}: models reloaded ({', '.join(tagger.model_ids)})"
                            + ("; statistics restarted (new phase reference)"

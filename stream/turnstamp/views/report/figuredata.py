@@ -9,7 +9,9 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from ...core import stats
+from ...core.moments import MAX_HARMONICS, PhaseMoments
+from ...core.periodicity import h_test
+from ...core.significance import sigma_from_log_p, trials_log_p
 from ...core.timebase import NS_PER_S
 from .night import json_or_none
 from .timegrid import GRID_ORIGIN_NS, Grid, UtcHours
@@ -94,7 +96,7 @@ def profile_data(target, recipe, row: dict | None, grid: Grid | None, template,
             "data_until_tt_ns": row.get("data_until_tt_ns"), "weighted": weighted,
         }
     elif grid is not None and grid.moments:
-        total = stats.PhaseMoments(stats.MAX_HARMONICS, grid.bins)
+        total = PhaseMoments(MAX_HARMONICS, grid.bins)
         for m in grid.moments.values():
             total += m
         if total.sum_w <= 0:
@@ -169,7 +171,7 @@ def significance_data(target, recipe, table: pa.Table | None, grid: Grid | None,
     if not windows and grid is not None and grid.moments:
         cells = sorted(grid.moments)
         first = cells[0]
-        total = stats.PhaseMoments(stats.MAX_HARMONICS, grid.bins)
+        total = PhaseMoments(MAX_HARMONICS, grid.bins)
         until, sigma, post, events = [], [], [], []
         step = max(1, math.ceil((cells[-1] - first + 1) / 120))
         for index, cell in enumerate(cells):
@@ -178,11 +180,11 @@ def significance_data(target, recipe, table: pa.Table | None, grid: Grid | None,
                 != (cell - first) // step
             if not last_in_step:
                 continue
-            h = stats.h_test(total)
+            h = h_test(total)
             log_p = min(h.log_p, 0.0)
             until.append(min((cell + 1) * grid.cell_ns + GRID_ORIGIN_NS - 1, grid.last_ns))
-            sigma.append(stats.sigma_from_log_p(log_p))
-            post.append(stats.sigma_from_log_p(stats.trials_log_p(log_p, max(trials, 1))))
+            sigma.append(sigma_from_log_p(log_p))
+            post.append(sigma_from_log_p(trials_log_p(log_p, max(trials, 1))))
             events.append(total.count)
         windows["cumulative"] = {"data_until_tt_ns": np.array(until, np.int64),
                                  "h_sigma": np.array(sigma), "h_sigma_post_trials":

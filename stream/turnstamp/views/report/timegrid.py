@@ -19,8 +19,8 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from ...core import stats
 from ...core.flags import Quality
+from ...core.moments import DEFAULT_BINS, MAX_HARMONICS, PhaseMoments
 from ...core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, from_tt
 from ...errors import ArrowFileError
 from ...files.reader import read_arrow_file_report
@@ -58,7 +58,7 @@ class Grid:
     cell_ns: int
     hist: dict[int, np.ndarray] = field(default_factory=dict)  # cell -> sum w per bin
     hist_w2: dict[int, np.ndarray] = field(default_factory=dict)
-    moments: dict[int, stats.PhaseMoments] | None = None
+    moments: dict[int, PhaseMoments] | None = None
     rows: int = 0
     sum_w: float = 0.0
     first_ns: int | None = None
@@ -191,7 +191,7 @@ def _add_recipe_rows(reduction: _FileReduction, options: _GridOptions, key: tupl
         return
     weighted = options.weighted.get(key, False)
     grid = reduction.grids.setdefault(
-        key, Grid(options.bins.get(key, stats.DEFAULT_BINS), weighted, options.cell_ns,
+        key, Grid(options.bins.get(key, DEFAULT_BINS), weighted, options.cell_ns,
                   moments={} if options.with_moments else None))
     _add_rows(grid, columns["tt"][chosen], columns["phase"][chosen],
               columns["weight"][chosen] if weighted else None)
@@ -224,7 +224,7 @@ def _add_rows(grid: Grid, tt: np.ndarray, phase: np.ndarray, weight: np.ndarray 
         for start, end in zip(starts, ends, strict=True):
             cell = int(sorted_cells[start])
             take = order[start:end]
-            m = grid.moments.setdefault(cell, stats.PhaseMoments(stats.MAX_HARMONICS,
+            m = grid.moments.setdefault(cell, PhaseMoments(MAX_HARMONICS,
                                                                  grid.bins))
             m.update(phase[take], None if weight is None else weight[take])
     grid.rows += tt.size

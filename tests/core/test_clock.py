@@ -1,8 +1,10 @@
 """Quick-look clock-chain check: model fits on offset series and whole synthetic nights.
 
-Sources: REFERENCES.md §3.7 (TAI−UTC = 37 s, GPS = TAI − 19 s, TT − TAI = 32.184 s, leap
-seconds), §8 (20-milliperiod tolerance, common practice; Gaussian smearing factor
-exp(−2π²k²σ²)), §1.5 (p ↔ σ, one-sided); scipy.stats for reference tail probabilities.
+Sources, named beside each check: TAI − UTC = 37 s since 2017 (IERS Bulletin C; the
+leap-second table of erfa.dat), TT − TAI = 32.184 s (erfa.TTMTAI); the 20-milliperiod
+tolerance (common practice); the Gaussian smearing factor exp(−2π²k²σ²) (the
+characteristic function of a Gaussian); σ one-sided and tail probabilities from
+scipy.stats.
 Synthetic nights are built at the phase level: φ = φ_template + ν·δt(t) with an
 injected timing error δt(t); everything else is known by construction.
 """
@@ -16,23 +18,27 @@ import numpy as np
 import pytest
 from scipy import stats as scipy_stats
 
-from turnstamp.core.clockcheck import (
-    ChunkOffset,
-    ClockVerdict,
-    _significance,
-    chunk_offsets,
-    diagnose,
-    explain_offset,
+from turnstamp.core.clock.chunks import ChunkOffset, chunk_offsets
+from turnstamp.core.clock.diagnose import diagnose
+from turnstamp.core.clock.mistakes import explain_offset
+from turnstamp.core.clock.series import (
+    delta_chi2_sigma,
     fit_constant,
     fit_drift,
     fit_jitter,
-    fit_smear,
     fit_step,
-    fit_wobble,
     unwrap_offsets,
 )
-from turnstamp.core.stats import PhaseMoments, TimeBinnedMoments, h_test
-from turnstamp.core.template import PeakComponent, PulseTemplate, fit_offset, wrap_cycles
+from turnstamp.core.clock.smear import fit_smear
+from turnstamp.core.clock.verdict import ClockVerdict
+from turnstamp.core.clock.wobble import fit_wobble
+from turnstamp.core.cycles import wrap_cycles
+from turnstamp.core.moments import PhaseMoments
+from turnstamp.core.peaks import PeakComponent
+from turnstamp.core.periodicity import h_test
+from turnstamp.core.template import PulseTemplate
+from turnstamp.core.templatefit import fit_offset
+from turnstamp.core.timebinned import TimeBinnedMoments
 
 NU = 311.37  # Hz, an invented bright millisecond pulsar
 NIGHT_S = 8 * 3600.0
@@ -122,14 +128,15 @@ def test_jitter_fit_measures_extra_scatter():
 
 
 def test_significance_convention():
-    # REFERENCES §1.5: σ is one-sided, σ = Φ⁻¹(1 − p). Δχ² = 25 with 1 dof has
-    # p = P(|Z| > 5) = 5.733031e-7 (the two-sided 5σ value), i.e. one-sided σ = 4.8916
-    assert _significance(25.0, 1) == pytest.approx(scipy_stats.norm.isf(5.733031e-7), rel=1e-6)
-    # Δχ² = 20 with 2 dof: p = e^{-10} = 4.539993e-5 (§1.1 closed form)
-    assert _significance(20.0, 2) == pytest.approx(scipy_stats.norm.isf(math.exp(-10)))
-    # 100 trials: p_post = 1 − (1 − p)^100 (§1.5)
+    # σ is one-sided, σ = Φ⁻¹(1 − p) (scipy.stats.norm.isf). Δχ² = 25 with 1 dof has
+    # p = P(|Z| > 5) = 5.733031e-7 (the two-sided 5σ value, 2·scipy.stats.norm.sf(5)),
+    # i.e. one-sided σ = norm.isf(5.733031e-7) = 4.8646 (4.8916 is the two-sided σ of 1e-6)
+    assert delta_chi2_sigma(25.0, 1) == pytest.approx(scipy_stats.norm.isf(5.733031e-7), rel=1e-6)
+    # Δχ² = 20 with 2 dof: p = e^{-10} = 4.539993e-5 (closed-form χ²_2 tail, scipy.stats.chi2.sf)
+    assert delta_chi2_sigma(20.0, 2) == pytest.approx(scipy_stats.norm.isf(math.exp(-10)))
+    # 100 independent trials: p_post = 1 − (1 − p)^100
     p_post = -math.expm1(100 * math.log1p(-math.exp(-10)))
-    assert _significance(20.0, 2, 100) == pytest.approx(scipy_stats.norm.isf(p_post))
+    assert delta_chi2_sigma(20.0, 2, 100) == pytest.approx(scipy_stats.norm.isf(p_post))
 
 
 def test_unwrap_keeps_a_ramp_continuous():
@@ -140,8 +147,8 @@ def test_unwrap_keeps_a_ramp_continuous():
 
 
 def test_explanations_of_known_time_mistakes():
-    # REFERENCES §3.7: TAI − UTC = 37 s; frac(311.37 × 37) = frac(11520.69) = 0.69 → −0.31
-    # cycles; one leap second: frac(311.37) = +0.37 cycles [calc]
+    # TAI − UTC = 37 s since 2017-01-01 (IERS Bulletin C; erfa.dat): frac(311.37 × 37) =
+    # frac(11520.69) = 0.69 → −0.31 cycles; one leap second: frac(311.37) = +0.37 cycles
     found = explain_offset(-0.31, 0.001, NU)
     assert [e.delta_t_s for e in found] == [37.0]
     assert found[0].predicted_cycles == pytest.approx(-0.31, abs=1e-9)
@@ -151,8 +158,8 @@ def test_explanations_of_known_time_mistakes():
 
 
 def test_smear_fit_recovers_an_injected_gaussian_jitter():
-    # REFERENCES §8: a Gaussian phase jitter σ multiplies harmonic k by exp(−2π²k²σ²),
-    # exactly, so the smear fit of template ⊗ Gaussian(0.02) returns 0.02
+    # a Gaussian phase jitter σ multiplies harmonic k by exp(−2π²k²σ²) exactly (its
+    # characteristic function), so the smear fit of template ⊗ Gaussian(0.02) returns 0.02
     rng = np.random.default_rng(6)
     phases = TEMPLATE.sample(200_000, rng)
     clean = fit_offset(PhaseMoments().update(phases), TEMPLATE)
@@ -250,7 +257,7 @@ def test_constant_offset_of_200_us_fails(base_night):
 
 
 def test_leap_second_step_at_mid_night(base_night):
-    # a 1 s step shows only as frac(ν·1 s) = 0.37 cycles (REFERENCES §3.7 leap seconds)
+    # a 1 s step (a leap second) shows only as frac(ν·1 s) = 0.37 cycles
     verdict = run_night(base_night, lambda t: np.where(t >= NIGHT_S / 2, 1.0, 0.0))
     assert (verdict.status, verdict.kind) == ("FAIL", "step")
     assert verdict.step_cycles == pytest.approx(0.37, abs=3 * verdict.step_sigma_cycles)
@@ -259,7 +266,7 @@ def test_leap_second_step_at_mid_night(base_night):
 
 
 def test_tai_given_as_utc_is_explained(base_night):
-    # REFERENCES §3.7: TAI − UTC = 37 s since 2017; event times 37 s late
+    # TAI − UTC = 37 s since 2017 (IERS Bulletin C; erfa.dat); event times 37 s late
     verdict = run_night(base_night, lambda t: 0 * t + 37.0)
     assert (verdict.status, verdict.kind) == ("FAIL", "offset")
     assert 37.0 in [e.delta_t_s for e in verdict.explanations]
