@@ -4,7 +4,7 @@ import json
 
 import pytest
 
-from turnstamp.cli import build_parser, main
+from turnstamp.commands.main import build_parser, main
 from turnstamp.demo import data_file
 
 
@@ -18,8 +18,8 @@ def test_every_subcommand_has_help(capsys):
         assert "usage:" in capsys.readouterr().out
 
 
-def test_model_show_prints_derived_quantities(capsys):
-    assert main(["model", "show", data_file("ember.toml")]) == 0
+def test_model_summary_prints_the_spin_down_summary(capsys):
+    assert main(["model", "summary", data_file("ember.toml")]) == 0
     text = capsys.readouterr().out
     # Ember: f = 29.94692212345678 Hz, fdot = -3.7712e-10 -> P = 0.0333924 s (1/f) and
     # tau_c = -f/(2 fdot) = 1258.2 yr (Lorimer & Kramer 2005 ch. 3, from memory)
