@@ -4,7 +4,7 @@ import json
 
 import pytest
 
-from turnstamp.cli import build_parser, main
+from turnstamp.commands.main import build_parser, main
 from turnstamp.demo import data_file
 
 
@@ -18,8 +18,8 @@ def test_every_subcommand_has_help(capsys):
         assert "usage:" in capsys.readouterr().out
 
 
-def test_model_show_prints_the_spin_down_summary(capsys):
-    assert main(["model", "show", data_file("ember.toml")]) == 0
+def test_model_summary_prints_the_spin_down_summary(capsys):
+    assert main(["model", "summary", data_file("ember.toml")]) == 0
     text = capsys.readouterr().out
     # Ember (invented): f = 13.71963518472915 Hz, fdot = -1.9037e-12 Hz/s, so
     # P = 1/f = 0.07288823548 s and tau_c = -f/(2 fdot) = 3.60341e12 s / 31557600 s per

@@ -11,13 +11,14 @@ import csv
 import hashlib
 import json
 import logging
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from . import __version__
-from .config import BarycentreConfig, SiteConfig, TargetConfig
+from .config import BarycentreConfig, RecipeConfig, SiteConfig, TargetConfig
 from .core.barycentre import BarycentreCalculator, SkyPosition
 from .core.correctiontable import CorrectionTable
 from .core.earth import EarthOrientation, GroundSite, OrbitTrack
@@ -25,12 +26,14 @@ from .core.phase import PhaseCalculator
 from .core.spin import SpinModel
 from .core.tagger import TargetTagger
 from .core.targets import Recipe, TargetSetup
+from .core.template import PulseTemplate
 from .core.timebase import NS_PER_S, ClockCorrection, LeapSecondTable, parse_instant
 from .errors import ConfigError
 from .files.bundled import bundled_leap_seconds, load_earth_orientation, open_ephemeris
 from .files.inputs import load_spin_model, load_template
 
-__all__ = ["Environment", "TableCache", "load_phase_calculators", "build_target", "recipe_from"]
+__all__ = ["Environment", "TableCache", "phase_calculators_for", "load_phase_calculators",
+           "target_setup", "build_target", "recipe_from"]
 
 log = logging.getLogger(__name__)
 
@@ -188,12 +191,17 @@ def _read_table(path: Path, provenance: dict[str, str]) -> CorrectionTable | Non
         arrow["flags"].to_numpy(), stored)
 
 
-def load_phase_calculators(paths) -> list[PhaseCalculator]:
-    models: list[SpinModel] = [load_spin_model(p) for p in paths]
+def phase_calculators_for(models: Sequence[SpinModel]) -> list[PhaseCalculator]:
+    """Phase calculators of one target's spin models (their ``model_id`` must differ)."""
     ids = [m.model_id for m in models]
     if len(set(ids)) != len(ids):
         raise ConfigError("models", ids, "model_id must be unique within a target")
     return [PhaseCalculator(m) for m in models]
+
+
+def load_phase_calculators(paths) -> list[PhaseCalculator]:
+    """Phase calculators of the spin-model files ``paths`` (TOML or JSON)."""
+    return phase_calculators_for([load_spin_model(p) for p in paths])
 
 
 def recipe_from(config) -> Recipe:
@@ -201,18 +209,29 @@ def recipe_from(config) -> Recipe:
                   config.min_score, config.use_weights, config.telescopes_any)
 
 
-def build_target(config: TargetConfig, table: CorrectionTable | None = None,
-                 calculators: list[PhaseCalculator] | None = None) -> TargetSetup:
-    calculators = calculators or load_phase_calculators(config.models)
+def target_setup(name: str, calculators: list[PhaseCalculator],
+                 recipes: Sequence[RecipeConfig] = (RecipeConfig(name="all"),),
+                 template: PulseTemplate | None = None, region_radius_deg: float | None = None,
+                 clock_check_recipe: str | None = None,
+                 table: CorrectionTable | None = None) -> TargetSetup:
+    """One target from objects already in memory (spin models compiled to phase calculators)."""
     positions = {json.dumps(p.model.sky_position_args(), sort_keys=True) for p in calculators}
     if len(positions) > 1:
-        raise ConfigError(f"targets.{config.name}.models", [p.model_id for p in calculators],
+        raise ConfigError(f"targets.{name}.models", [p.model_id for p in calculators],
                           "all models of a target must give the same sky position")
     position = SkyPosition(**calculators[0].model.sky_position_args())
-    recipes = [recipe_from(r) for r in config.recipes]
-    names = [r.name for r in recipes]
-    clock = names.index(config.clock_check_recipe) if config.clock_check_recipe else 0
+    built = [recipe_from(r) for r in recipes]
+    names = [r.name for r in built]
+    clock = names.index(clock_check_recipe) if clock_check_recipe else 0
     return TargetSetup(
-        tagger=TargetTagger(config.name, calculators, table), position=position,
-        recipes=recipes, template=load_template(config.template) if config.template else None,
-        region_radius_deg=config.region_radius_deg, clock_recipe=clock)
+        tagger=TargetTagger(name, calculators, table), position=position, recipes=built,
+        template=template, region_radius_deg=region_radius_deg, clock_recipe=clock)
+
+
+def build_target(config: TargetConfig, table: CorrectionTable | None = None,
+                 calculators: list[PhaseCalculator] | None = None) -> TargetSetup:
+    """One target from its configuration, reading its model and template files."""
+    return target_setup(
+        config.name, calculators or load_phase_calculators(config.models), config.recipes,
+        load_template(config.template) if config.template else None, config.region_radius_deg,
+        config.clock_check_recipe, table)

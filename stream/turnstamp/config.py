@@ -22,7 +22,9 @@ __all__ = [
     "TargetConfig",
     "RecipeConfig",
     "ClockCorrectionConfig",
+    "SiteFile",
     "load_config",
+    "load_site",
     "parse_energy_kev",
 ]
 
@@ -265,6 +267,14 @@ class ServiceConfig(BaseModel):
         return self
 
 
+class SiteFile(BaseModel):
+    """Any file with a [site] table: a site-only file or a whole service configuration
+    (its other tables are ignored)."""
+
+    model_config = ConfigDict(frozen=True, extra="ignore")
+    site: SiteConfig
+
+
 def _resolve(data, base: Path):
     """Make relative paths in the known path fields absolute against ``base``."""
     path_keys = {"file", "orbit_file", "earth_orientation_file", "ephemeris_file", "template",
@@ -297,3 +307,8 @@ def load_config(path: str | Path, model: type[BaseModel] = ServiceConfig):
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError("config", str(path), f"not valid TOML: {exc}") from None
     return validate(model, _resolve(data, path.parent.resolve()), str(path), ConfigError)
+
+
+def load_site(path: str | Path) -> SiteConfig:
+    """The [site] table of a TOML file (a site-only file or a service configuration)."""
+    return load_config(path, SiteFile).site

@@ -5,8 +5,8 @@ from pathlib import Path
 
 import pyarrow as pa
 
+from turnstamp.commands.schemas import check_schemas
 from turnstamp.files import schemas
-from turnstamp.schema_export import check_schemas
 
 SCHEMAS = Path(__file__).resolve().parents[2] / "schemas"
 

@@ -321,7 +321,7 @@ def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, t
 
 def test_offline_tagging_output_alone_gives_a_report(tmp_path, demo_env, lantern,
                                                      night_start_tt):
-    from turnstamp.cli import main
+    from turnstamp.commands.main import main
 
     plan = NightPlan(start_tt_ns=night_start_tt, duration_s=120, pulsed_rate_hz=40,
                      background_rate_hz=400, template=lantern.template, seed=4)

@@ -1,11 +1,11 @@
-"""``turnstamp tag``: an events file in, the archive's phase columns out."""
+"""Offline tagging (``turnstamp tag``): an events file in, the archive's phase columns out."""
 
 import numpy as np
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from turnstamp.cli import main
+from turnstamp.commands.main import main
 from turnstamp.core.simulate import NightPlan, simulate_night
 from turnstamp.demo import data_file
 
@@ -52,8 +52,8 @@ def test_archive_phase_agrees_with_the_astropy_route_to_its_accuracy(tmp_path, e
                                                                      demo_env):
     # astropy (Time with a location, .tdb + light_travel_time with the same kernel) is good
     # to ~2 µs here (see test_barycentre): at 311 Hz that is 6e-4 cycles. Its route has no
-    # Shapiro delay and no parallax term (astropy.time.Time.light_travel_time docstring), so
-    # ours are added to it (the decomposition of Backer & Hellings 1986, ARA&A 24, 537).
+    # Shapiro delay and no parallax term, so ours are added to it (the delays as decomposed
+    # by Backer & Hellings 1986, ARA&A 24, 537; from memory).
     from astropy.coordinates import EarthLocation, SkyCoord
     from astropy.time import Time
 
@@ -84,7 +84,7 @@ def test_archive_phase_agrees_with_the_astropy_route_to_its_accuracy(tmp_path, e
     assert 1e-6 < np.max(np.abs(terms["shapiro"])) < 2e-5  # the part astropy leaves out
     whole = np.floor(seconds)
     _, theirs, _ = PhaseCalculator(model).phase((whole * NS_PER_S).astype(np.int64),
-                                                seconds - whole)
+                                               seconds - whole)
     difference = (archive["phase"].to_numpy() - theirs + 0.5) % 1 - 0.5
     assert np.max(np.abs(difference)) < 1e-3
 

@@ -20,10 +20,10 @@ from pathlib import Path
 import numpy as np
 import zmq
 
-from .core.timebase import NS_PER_S, parse_instant, unix_to_ns
-from .demo import lantern_toml, site_toml
-from .files.reader import read_stream
-from .wire.encode import encode_message
+from ..core.timebase import NS_PER_S, parse_instant, unix_to_ns
+from ..demo import lantern_toml, site_toml
+from ..files.reader import read_stream
+from ..wire.encode import encode_message
 
 __all__ = ["bench_service"]
 

@@ -1,4 +1,4 @@
-"""``turnstamp demo``: the simulator and the service together on loopback, live.
+"""The simulator and the service together on loopback, live (``turnstamp demo``).
 
 Writes a configuration for the invented scenario into the output folder (so it
 can be read and reused with ``turnstamp run``), starts the service as a separate
@@ -18,9 +18,8 @@ import sys
 import threading
 import time
 from pathlib import Path
-from types import SimpleNamespace
 
-from .demo import data_file, lantern_toml, site_toml
+from . import data_file, lantern_toml, site_toml
 
 __all__ = ["run_demo", "demo_config", "HARD_RECIPES"]
 
@@ -45,7 +44,7 @@ def _free_port() -> int:
 
 def demo_config(out: Path, intake_port: int, publish_port: int) -> str:
     """The demo's service configuration (TOML)."""
-    return f"""# turnstamp demo: invented site, array and pulsars (see turnstamp/demo.py)
+    return f"""# turnstamp demo: invented site, array and pulsars (see turnstamp/demo/__init__.py)
 [intake]
 endpoints = ["tcp://127.0.0.1:{intake_port}"]
 pattern = "pull"
@@ -87,8 +86,12 @@ def _status_line(status: dict) -> str:
     return " | ".join(parts)
 
 
-def run_demo(args) -> int:
-    out = Path(args.out).resolve()
+def run_demo(out: Path, seconds: float = 60.0, rate: float = 20_000.0,
+             fault: str = "none") -> int:
+    """Run the demo for ``seconds`` at ``rate`` events/s (optionally with a clock
+    ``fault``), writing into ``out``; returns the exit status (1: the service failed or
+    the accounting did not reconcile)."""
+    out = Path(out).resolve()
     if out.exists() and any(out.glob("*.arrow")):
         stamp = time.strftime("%Y%m%dT%H%M%S")
         out = out / stamp  # never mix two runs' files
@@ -96,9 +99,9 @@ def run_demo(args) -> int:
     intake, publish = _free_port(), _free_port()
     config = out / "demo.toml"
     config.write_text(demo_config(out, intake, publish))
-    print(f"turnstamp demo: {args.seconds:.0f} s of a simulated night of the invented "
+    print(f"turnstamp demo: {seconds:.0f} s of a simulated night of the invented "
           f"millisecond pulsar Lantern,\nseen by the invented Kestrel array at Corvid Ridge; "
-          f"{args.rate:,.0f} events/s; fault injected: {args.fault}.")
+          f"{rate:,.0f} events/s; fault injected: {fault}.")
     print(f"configuration: {config}")
     service = subprocess.Popen([sys.executable, "-m", "turnstamp", "run", str(config)],
                                stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
@@ -112,13 +115,12 @@ def run_demo(args) -> int:
             return 1
         time.sleep(0.2)
 
-    from .simulator import run_simulator
+    from .simulator import publish_night
 
-    sim_args = SimpleNamespace(endpoint=f"tcp://127.0.0.1:{intake}", pattern="push", bind=False,
-                               seconds=args.seconds, rate=args.rate, pulsed_fraction=0.006,
-                               speed=1.0, start=None, fault=args.fault, seed=1,
-                               source="kestrel-array")
-    sender = threading.Thread(target=run_simulator, args=(sim_args, None), daemon=True)
+    sender = threading.Thread(target=publish_night, args=(f"tcp://127.0.0.1:{intake}",),
+                              kwargs=dict(seconds=seconds, rate=rate, pulsed_fraction=0.006,
+                                          fault=fault, seed=1, source="kestrel-array",
+                                          out=None), daemon=True)
     sender.start()
     interactive = sys.stdout.isatty()
     last = 0.0
@@ -144,7 +146,7 @@ def run_demo(args) -> int:
 
 
 def _summary(out: Path, log_lines: list[str]) -> int:
-    from .views.live import render_status
+    from ..views.live import render_status
 
     status = json.loads((out / "status.json").read_text())
     print()

@@ -5,11 +5,24 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-__all__ = ["inspect_path"]
+__all__ = ["add_parser", "run", "inspect_path"]
+
+
+def add_parser(subparsers) -> None:
+    p = subparsers.add_parser("inspect", help="summarise an output file or folder")
+    p.add_argument("path")
+    p.add_argument("--rows", type=int, default=5, help="rows to show per file")
+    p.add_argument("--json", action="store_true")
+    p.set_defaults(run=run)
+
+
+def run(args) -> int:
+    print(inspect_path(Path(args.path), rows=args.rows, as_json=args.json))
+    return 0
 
 
 def _summarise_file(path: Path, rows: int) -> dict:
-    from .files.reader import read_arrow_file_report
+    from ..files.reader import read_arrow_file_report
 
     table, info = read_arrow_file_report(path)
     meta = {k.decode(): v.decode() for k, v in (table.schema.metadata or {}).items()}

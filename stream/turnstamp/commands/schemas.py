@@ -1,4 +1,5 @@
-"""Write the project's formats into ``schemas/`` so other tools need not read our code.
+"""``turnstamp schemas``: write the project's formats into ``schemas/`` so other tools
+need not read our code (``--check``: exit 1 if a file is out of date).
 
 JSON Schemas (from the pydantic models) for the service configuration, spin models,
 pulse templates and the wire header; for every Arrow schema, a JSON description
@@ -11,17 +12,34 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-__all__ = ["schema_files", "write_schemas", "check_schemas"]
+__all__ = ["add_parser", "run", "schema_files", "write_schemas", "check_schemas"]
+
+
+def add_parser(subparsers) -> None:
+    p = subparsers.add_parser("schemas", help="write the JSON/Arrow schemas (or check them)")
+    p.add_argument("directory", nargs="?", default="schemas")
+    p.add_argument("--write", action="store_true", help="(default) write the files")
+    p.add_argument("--check", action="store_true", help="exit 1 if any file is out of date")
+    p.set_defaults(run=run)
+
+
+def run(args) -> int:
+    if args.check:
+        stale = check_schemas(Path(args.directory))
+        for name in stale:
+            print(f"out of date: {name}")
+        return 1 if stale else 0
+    for path in write_schemas(Path(args.directory)):
+        print(path)
+    return 0
 
 
 def schema_files() -> dict[str, bytes]:
-    import pyarrow as pa
-
-    from .config import ServiceConfig
-    from .core.spin import SpinModel
-    from .core.template import PulseTemplate
-    from .files import schemas
-    from .wire.message import MessageHeader
+    from ..config import ServiceConfig
+    from ..core.spin import SpinModel
+    from ..core.template import PulseTemplate
+    from ..files import schemas
+    from ..wire.message import MessageHeader
 
     def dump(obj) -> bytes:
         return (json.dumps(obj, indent=2, sort_keys=True, ensure_ascii=False) + "\n").encode()
@@ -38,7 +56,6 @@ def schema_files() -> dict[str, bytes]:
         files[f"{name}.arrow.json"] = dump({"name": name, **meta,
                                             "fields": schemas.field_docs(schema)})
         files[f"{name}.arrow-schema"] = schema.serialize().to_pybytes()
-    del pa
     return files
 
 

@@ -1,16 +1,19 @@
-"""The invented scenario of the demo: a site, an instrument, two pulsars.
+"""The demo: an invented scenario, its simulated nights and the live run.
 
-Corvid Ridge is an invented site with an invented gamma-ray array (the Kestrel
-array); Lantern (a bright millisecond pulsar) and Ember (a young pulsar in a
-binary, not pulsing in the simulation) are invented too. Their model and
-template files ship in ``turnstamp/data``.
+This package module is the scenario itself: Corvid Ridge is an invented site
+with an invented gamma-ray array (the Kestrel array); Lantern (a bright
+millisecond pulsar) and Ember (a young pulsar in a binary, not pulsing in the
+simulation) are invented too. Their model and template files ship in
+``turnstamp/data``. Beside it: ``simulator`` (a simulated night published over
+ZeroMQ: ``turnstamp simulate``) and ``live`` (service and simulator together on
+loopback: ``turnstamp demo``).
 """
 
 from __future__ import annotations
 
 from importlib import resources
 
-from .config import SiteConfig
+from ..config import SiteConfig
 
 __all__ = ["DEMO_SITE", "data_file", "site_toml", "lantern_toml"]
 

@@ -1,0 +1,75 @@
+"""``turnstamp``: the command line, assembled from one module per command.
+
+Each command module of this package exposes ``add_parser(subparsers)``, which
+declares its options and imports nothing heavy, and ``run(args) -> int``, which
+imports what the command needs when it runs; so ``turnstamp --help`` and small
+commands start fast. This module builds the parser from them and holds the one
+error handler: bad input from outside (``InputError``, a missing file) ends with
+one line on stderr naming the command (exit status 2), Ctrl-C with status 130,
+and our own bugs keep their traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+
+from .. import __version__
+from ..errors import InputError
+from . import (
+    bench,
+    demo,
+    inspect,
+    model,
+    report,
+    run,
+    schemas,
+    simulate,
+    stack,
+    table,
+    tag,
+    template,
+    watch,
+)
+
+__all__ = ["COMMANDS", "build_parser", "main"]
+
+COMMANDS = (demo, run, simulate, tag, model, table, inspect, report, watch, stack, template,
+            bench, schemas)
+"""Command modules, in the order ``turnstamp --help`` lists them."""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The whole command line: global options and one subparser per command."""
+    parser = argparse.ArgumentParser(
+        prog="turnstamp",
+        description="Barycentric phase tagging and live periodicity monitoring for "
+                    "photon-counting telescopes.")
+    parser.add_argument("--version", action="version", version=f"turnstamp {__version__}")
+    parser.add_argument("-v", "--verbose", action="store_true", help="log more")
+    subparsers = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    for command in COMMANDS:
+        command.add_parser(subparsers)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run one command; returns its exit status (2: bad input, 130: interrupted)."""
+    args = build_parser().parse_args(argv)
+    logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
+                        format="%(asctime)s %(levelname)s %(name)s: %(message)s")
+    from ..files.bundled import ensure_offline
+
+    ensure_offline()
+    try:
+        return args.run(args)
+    except (InputError, FileNotFoundError) as exc:
+        print(f"turnstamp {args.command}: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,100 @@
+"""A simulated night of the invented demo pulsar, published over ZeroMQ
+(the library behind ``turnstamp simulate``).
+
+The night is drawn by ``core.simulate`` (pulsed events through the real forward
+chain, a background, energies, directions, scores, weights, optional clock
+faults) and sent with ``EventPublisher`` at the chosen pace.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+
+import numpy as np
+
+from ..assemble import Environment, TableCache, build_target
+from ..config import BarycentreConfig, TargetConfig
+from ..core.simulate import Fault, NightPlan, simulate_night
+from ..core.timebase import NS_PER_S, Scale, parse_instant, to_tt, unix_to_ns
+from ..wire.publisher import EventPublisher
+from . import DEMO_SITE, data_file
+
+__all__ = ["publish_night", "demo_night", "BATCH_SECONDS"]
+
+BATCH_SECONDS = 0.5  # night seconds per message: ~10 000 events at the demo's rate
+
+
+def demo_night(seconds: float, rate: float, pulsed_fraction: float, start_utc_ns: int,
+               fault: str = "none", seed: int = 0, batch_seconds: float = 0.5,
+               source: str = "simulator"):
+    """A simulated night of the demo pulsar seen from the demo site.
+
+    Returns (iterator of ``EventBatch``, start of the night in TT ns since
+    2000-01-01T12:00:00, the demo site's ``Environment``); ``start_utc_ns`` is a UTC
+    label in ns, ``seconds`` the length of the night and ``rate`` events per second.
+    """
+    env = Environment.from_site(DEMO_SITE)
+    target = build_target(TargetConfig(name="lantern", models=[data_file("lantern.toml")],
+                                       template=data_file("lantern-template.toml")))
+    start = int(to_tt(np.array([start_utc_ns]), Scale.UTC, env.leaps)[0][0])
+    target.tagger.table = TableCache(None, env, BarycentreConfig()).table(
+        target.position, start - 600 * NS_PER_S, start + int((seconds + 600) * NS_PER_S))
+    plan = NightPlan(start_tt_ns=start, duration_s=seconds,
+                     pulsed_rate_hz=rate * pulsed_fraction,
+                     background_rate_hz=rate * (1 - pulsed_fraction),
+                     template=target.template, fault=Fault(kind=fault),
+                     batch_seconds=batch_seconds, seed=seed, source=source)
+    return simulate_night(plan, target.tagger, target.position, env.leaps), start, env
+
+
+def publish_night(endpoint: str, *, pattern: str = "push", bind: bool = False,
+                  seconds: float = 60.0, rate: float = 20_000.0, pulsed_fraction: float = 0.01,
+                  speed: float = 1.0, start: str | None = None, fault: str = "none",
+                  seed: int = 0, source: str = "simulator", out=sys.stderr) -> int:
+    """Publish a simulated night with ``EventPublisher``; returns the exit status (0).
+
+    Parameters
+    ----------
+    endpoint : str
+        ZeroMQ endpoint to connect (or bind) to.
+    pattern : {"push", "pub"}
+        Socket pattern; ``bind`` binds instead of connecting.
+    seconds : float
+        Length of the night, s.
+    rate : float
+        Events per second of night; ``pulsed_fraction`` of them are pulsed.
+    speed : float
+        Night seconds per wall-clock second (0: as fast as possible).
+    start : str, optional
+        UTC label of the start of the night (default: now).
+    fault : str
+        Clock fault to inject (``core.simulate.Fault`` kinds, or "none").
+    seed : int
+        Random seed.
+    source : str
+        Source name in the message headers.
+    out : file, optional
+        Where the closing line is printed (None: silent).
+    """
+    start_utc = parse_instant(start) if start else unix_to_ns(time.time())
+    batches, _, _ = demo_night(seconds, rate, pulsed_fraction, start_utc, fault, seed,
+                               BATCH_SECONDS, source=source)
+    began = time.monotonic()
+    sent = 0
+    with EventPublisher(endpoint, source, time_scale="UTC", pattern=pattern,
+                        bind=bind) as publisher:
+        if pattern == "pub":
+            time.sleep(0.5)  # let subscribers connect: PUB drops what nobody receives
+        for batch in batches:
+            if speed > 0:  # send each batch once its stretch of night has passed
+                night_s = (batch.sequence + 1) * BATCH_SECONDS
+                delay = night_s / speed - (time.monotonic() - began)
+                if delay > 0:
+                    time.sleep(delay)
+            publisher.send(**batch.columns())
+            sent += len(batch)
+        if out is not None:
+            print(f"simulator: sent {sent} events in {publisher.sequence} messages to "
+                  f"{endpoint}", file=out)
+    return 0
