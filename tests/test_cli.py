@@ -83,9 +83,9 @@ def test_stack_and_template_commands(tmp_path, capsys, demo_env, lantern, night_
     from turnstamp.core.pipeline import Pipeline, PipelineSettings
     from turnstamp.core.simulate import NightPlan, simulate_night
     from turnstamp.files import schemas
+    from turnstamp.files.outputs import rows_table
     from turnstamp.files.writer import RotatingArrowWriter
     from turnstamp.service.checkpoint import write_checkpoint
-    from turnstamp.service.outputs import rows_table
 
     plan = NightPlan(start_tt_ns=night_start_tt, duration_s=30, pulsed_rate_hz=80,
                      background_rate_hz=400, template=lantern.template, seed=4)

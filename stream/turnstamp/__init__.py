@@ -12,11 +12,12 @@ function imports what it needs when called::
                                   turnstamp.load_template("lantern-template.toml"))
     print(offset.offset_cycles, "+/-", offset.sigma_cycles)
 
-Where things live: ``core/`` the pure numerics (no I/O), ``io/`` the wire format
-and files, ``service`` the live loop, ``commands/`` one module per command of the
-``turnstamp`` program, ``tagging`` offline tagging, ``config`` and ``assemble``
-the configuration and what it builds, ``demo/`` the invented demo scenario,
-``bench/`` the benchmarks.
+Where things live: ``core/`` the pure numerics (no I/O), ``wire/`` the format of
+the event stream, ``files/`` the Arrow files and the input files, ``service/`` the
+live service, ``views/`` the night report and the live view, ``commands/`` one
+module per command of the ``turnstamp`` program, ``tagging`` offline tagging,
+``config`` and ``assemble`` the configuration and what it builds, ``demo/`` the
+invented demo scenario, ``bench/`` the benchmarks (DEVELOPERS.md draws the map).
 """
 
 from __future__ import annotations

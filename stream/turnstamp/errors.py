@@ -7,8 +7,9 @@ bugs raise ordinary exceptions (``AssertionError``, ``RuntimeError``) and are
 never caught by the service loop's peer-error handling.
 
 Every error class of the package lives here: the input errors, the wire
-format's refusal (``WireError``), and the errors of the Arrow files
-(``SchemaMismatchError``, ``ArrowFileError``, ``ArrowMetadataError``).
+format's refusal (``WireError``), the errors of the Arrow files
+(``SchemaMismatchError``, ``ArrowFileError``, ``ArrowMetadataError``), and the
+report's (``ReportError``).
 """
 
 from __future__ import annotations
@@ -26,6 +27,7 @@ __all__ = [
     "SchemaMismatchError",
     "ArrowFileError",
     "ArrowMetadataError",
+    "ReportError",
 ]
 
 
@@ -128,3 +130,7 @@ class ArrowFileError(ValueError):
 
 class ArrowMetadataError(ValueError):
     """The FlatBuffers metadata of an Arrow IPC message cannot be read (bad data, not ours)."""
+
+
+class ReportError(RuntimeError):
+    """The report cannot be built (missing optional dependency, no outputs)."""

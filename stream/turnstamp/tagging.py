@@ -17,9 +17,8 @@ batches give the same archive rows, with the same accounting as the service.
 from __future__ import annotations
 
 import json
-import sys
 import time
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -29,6 +28,7 @@ import pyarrow.parquet as pq
 
 from .assemble import Environment, TableCache
 from .config import BarycentreConfig, RecipeConfig, TargetConfig
+from .core.accounting import MessageRecord
 from .core.correctiontable import TableSet
 from .core.pipeline import Pipeline, PipelineSettings
 from .core.targets import TargetSetup
@@ -36,7 +36,8 @@ from .core.timebase import NS_PER_DAY as DAY_NS
 from .core.timebase import NS_PER_S, Scale, to_tt
 from .errors import EventFileError, WireError
 from .files import schemas
-from .service.outputs import archive_table, rejects_table
+from .files.ledger import Ledger
+from .files.outputs import archive_table, rejects_table
 from .wire.decode import batch_from_record
 
 __all__ = ["TagSummary", "tag_file", "tag_table", "default_target", "READ_ROWS"]
@@ -132,7 +133,7 @@ class _TagRun:
     """One target's pipeline over barycentre tables for the days that hold events."""
 
     def __init__(self, setup: TargetSetup, env: Environment, scale: Scale, days: list[int],
-                 table_cache: Path | None, label: str):
+                 table_cache: Path | None, label: str, ledger: Ledger):
         cache = TableCache(table_cache, env, BarycentreConfig())
         setup.tagger.table = TableSet(cache.table(setup.position, day, day + DAY_NS)
                                       for day in days)
@@ -144,24 +145,25 @@ class _TagRun:
                          "models": ",".join(self.model_ids), "input": label,
                          "recipes": ",".join(r.name for r in setup.recipes),
                          "table": _table_summary(setup.tagger.table)}
+        self.ledger = ledger
 
-    def feed(self, record: pa.RecordBatch, source: str,
-             sequence: int) -> tuple[pa.Table | None, pa.Table | None]:
-        """Archive rows and rejects rows (either None when empty) of one batch."""
+    def feed(self, record: pa.RecordBatch, source: str, sequence: int) -> None:
+        """Tag one batch and commit its rows to the ledger (archive, then rejects)."""
         try:
             batch, _ = batch_from_record(record, source=source, sequence=sequence,
                                          time_scale=self.scale)
         except WireError as exc:
             raise EventFileError("events", self.label, exc.detail) from None
         result = self.pipeline.feed(batch)
-        archive = None
+        archive = []
         if self.name in result.archive:
-            archive = archive_table(result.archive[self.name], source, batch.sequence,
-                                    self.name, self.model_ids)
-        rejects = None
+            archive.append(archive_table(result.archive[self.name], source, batch.sequence,
+                                         self.name, self.model_ids))
+        rejects = []
         if result.rejected:
-            rejects = rejects_table(batch, result, received_utc_ns=0, message_bytes=0)
-        return archive, rejects
+            rejects.append(rejects_table(batch, result, received_utc_ns=0, message_bytes=0))
+        record = MessageRecord.accepted(0, source, batch.sequence, result)
+        self.ledger.commit(record, archive, rejects)
 
     def check_accounting(self) -> None:
         counters = self.pipeline.counters
@@ -169,7 +171,8 @@ class _TagRun:
 
 
 def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment,
-             scale: Scale, table_cache: Path | None = None, progress=sys.stderr) -> TagSummary:
+             scale: Scale, table_cache: Path | None = None,
+             on_batch: Callable[[int], None] | None = None) -> TagSummary:
     """Tag every event of a file for one target; write the archive and the rejects.
 
     Parameters
@@ -188,24 +191,23 @@ def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment,
         Time scale of ``time_ns`` (UTC labels, TAI, GPS or TT).
     table_cache : Path, optional
         Folder of cached barycentre tables.
-    progress : file, optional
-        Where a running count is printed (None: silent).
+    on_batch : callable, optional
+        Called with the number of events of each batch once it is committed (progress).
     """
     started = time.perf_counter()
     days = _days_with_events(_batches(events), str(events), scale, env.leaps)
-    run = _TagRun(setup, env, scale, days, table_cache, str(events))
     rejects_path = output.with_name(output.stem + ".rejects.arrow")
-    archive_out = _Writer(output, _with_metadata(schemas.ARCHIVE, run.metadata), always=True)
-    rejects_out = _Writer(rejects_path, _with_metadata(schemas.REJECTS, run.metadata))
+    archive_out = _Writer(output, always=True)
+    rejects_out = _Writer(rejects_path)
+    run = _TagRun(setup, env, scale, days, table_cache, str(events),
+                  Ledger(archive_out, rejects_out))
+    archive_out.schema = _with_metadata(schemas.ARCHIVE, run.metadata)
+    rejects_out.schema = _with_metadata(schemas.REJECTS, run.metadata)
     with archive_out, rejects_out:
         for sequence, record in enumerate(_batches(events)):
-            archive, rejects = run.feed(record, events.name, sequence)
-            for table, writer in ((archive, archive_out), (rejects, rejects_out)):
-                if table is not None:
-                    writer.write(table)
-            _show_progress(run.pipeline.counters, progress)
-    if progress is not None:
-        print(file=progress)
+            run.feed(record, events.name, sequence)
+            if on_batch is not None:
+                on_batch(record.num_rows)
     run.check_accounting()
     counters = run.pipeline.counters
     return TagSummary(counters.events_received, counters.events_tagged,
@@ -234,23 +236,28 @@ def tag_table(table: pa.Table, setup: TargetSetup, env: Environment, scale: Scal
     Returns
     -------
     pyarrow.Table
-        Archive schema (``io.schemas.ARCHIVE``) with the provenance in its metadata.
+        Archive schema (``files.schemas.ARCHIVE``) with the provenance in its metadata.
     """
     records = table.to_batches(max_chunksize=READ_ROWS)
     days = _days_with_events(records, source, scale, env.leaps)
-    run = _TagRun(setup, env, scale, days, table_cache, source)
-    schema = _with_metadata(schemas.ARCHIVE, run.metadata)
-    parts = [run.feed(record, source, sequence)[0] for sequence, record in enumerate(records)]
+    archive: list[pa.Table] = []
+    run = _TagRun(setup, env, scale, days, table_cache, source,
+                  Ledger(_Collected(archive), _Collected([])))
+    for sequence, record in enumerate(records):
+        run.feed(record, source, sequence)
     run.check_accounting()
-    return pa.concat_tables([p.cast(schema) for p in parts if p is not None]
-                            or [schema.empty_table()])
+    schema = _with_metadata(schemas.ARCHIVE, run.metadata)
+    return pa.concat_tables([part.cast(schema) for part in archive] or [schema.empty_table()])
 
 
-def _show_progress(counters, progress) -> None:
-    if progress is not None:
-        print(f"\r{counters.events_received:,} events read, "
-              f"{counters.events_tagged:,} tagged",
-              end="", file=progress, flush=True)
+class _Collected:
+    """A stream kept in memory: the tables written to it, in order."""
+
+    def __init__(self, tables: list[pa.Table]):
+        self.tables = tables
+
+    def write(self, table: pa.Table) -> None:
+        self.tables.append(table)
 
 
 def _table_summary(tables: TableSet) -> str:
@@ -263,7 +270,7 @@ class _Writer:
     """Streams tables into one Arrow IPC or Parquet file, created on first write
     (or on close when ``always``: the archive exists even when empty)."""
 
-    def __init__(self, path: Path, schema: pa.Schema, always: bool = False):
+    def __init__(self, path: Path, schema: pa.Schema | None = None, always: bool = False):
         self.path = path
         self.schema = schema
         self.always = always

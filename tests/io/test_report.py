@@ -1,6 +1,6 @@
 """``turnstamp report``: a simulated night written as the service writes it, then the report.
 
-The night is fed through the core pipeline and written with the real sinks (no
+The night is fed through the core pipeline and written with the real writers (no
 service): archive rows per batch, significance and profile rows every 30 s of event
 time, clock rows every 60 s, a ledger row per message, rejects, and a status.json.
 The checks compare the numbers behind every figure (report-data.json) with the Arrow
@@ -27,11 +27,10 @@ from turnstamp.core.pipeline import Pipeline, PipelineSettings
 from turnstamp.core.simulate import NightPlan, simulate_night
 from turnstamp.core.timebase import NS_PER_S, Scale, from_tt
 from turnstamp.demo import data_file
-from turnstamp.files import schemas
+from turnstamp.files import outputs, schemas
 from turnstamp.files.durable import atomic_write_json
 from turnstamp.files.reader import read_stream
 from turnstamp.files.writer import RotatingArrowWriter
-from turnstamp.service import outputs
 from turnstamp.views.report import build_report, report_main
 
 pytest.importorskip("matplotlib")

@@ -7,9 +7,9 @@ import numpy as np
 
 from turnstamp.config import load_config
 from turnstamp.core.simulate import NightPlan, simulate_night
+from turnstamp.files.outputs import archive_tables, message_reject_table
 from turnstamp.files.reader import read_stream
 from turnstamp.service.loop import Service
-from turnstamp.service.outputs import archive_tables, message_reject_table
 from turnstamp.wire.encode import encode_message
 
 RECEIVED = 1_796_180_400.0  # 2026-12-02T03:00:00 UTC, in the demo night: s since 1970

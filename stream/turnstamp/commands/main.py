@@ -20,7 +20,7 @@ from ..errors import InputError
 from . import (
     bench,
     demo,
-    inspect,
+    inspect_output,
     model,
     report,
     run,
@@ -35,8 +35,8 @@ from . import (
 
 __all__ = ["COMMANDS", "build_parser", "main"]
 
-COMMANDS = (demo, run, simulate, tag, model, table, inspect, report, watch, stack, template,
-            bench, schemas)
+COMMANDS = (demo, run, simulate, tag, model, table, inspect_output, report, watch, stack,
+            template, bench, schemas)
 """Command modules, in the order ``turnstamp --help`` lists them."""
 
 

@@ -24,8 +24,11 @@ def add_parser(subparsers) -> None:
 
 def run(args) -> int:
     from ..demo.simulator import publish_night
+    from ..views.progress import progress
 
-    return publish_night(args.endpoint, pattern=args.pattern, bind=args.bind,
-                         seconds=args.seconds, rate=args.rate,
-                         pulsed_fraction=args.pulsed_fraction, speed=args.speed,
-                         start=args.start, fault=args.fault, seed=args.seed, source=args.source)
+    with progress("sending simulated events", total=round(args.seconds * args.rate)) as advance:
+        return publish_night(args.endpoint, pattern=args.pattern, bind=args.bind,
+                             seconds=args.seconds, rate=args.rate,
+                             pulsed_fraction=args.pulsed_fraction, speed=args.speed,
+                             start=args.start, fault=args.fault, seed=args.seed,
+                             source=args.source, on_batch=advance)

@@ -26,14 +26,16 @@ def run(args) -> int:
     from ..config import BarycentreConfig
     from ..core.timebase import Scale, format_instant, parse_instant, to_tt
     from ..tagging import default_target
+    from ..views.progress import progress
     from .common import site_environment
 
     env = site_environment(args.site)
     setup = build_target(default_target([args.model]))
     (start, stop), _ = to_tt(np.array([parse_instant(args.start), parse_instant(args.stop)]),
                              Scale.UTC, env.leaps)
-    table = TableCache(Path(args.cache), env, BarycentreConfig()).table(
-        setup.position, int(start), int(stop))
+    with progress("building the barycentre table"):
+        table = TableCache(Path(args.cache), env, BarycentreConfig()).table(
+            setup.position, int(start), int(stop))
     print(f"table {format_instant(table.start_ns, 0)} to {format_instant(table.stop_ns, 0)} TT, "
           f"{table.coefficients.shape[1]} segments of {table.segment_ns / 6e10:.0f} min, "
           f"degree {table.degree}; cached in {args.cache}")

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-import sys
+import io
 from pathlib import Path
 
 from .common import add_site_option
@@ -21,7 +21,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--out", required=True, help="output .arrow or .parquet")
     p.add_argument("--target", help="target name written to the archive")
     p.add_argument("--table-cache", help="folder for cached barycentre tables")
-    p.add_argument("--quiet", action="store_true", help="no progress line")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(run=run)
 
 
@@ -29,12 +29,15 @@ def run(args) -> int:
     from ..assemble import build_target
     from ..core.timebase import Scale
     from ..tagging import default_target, tag_file
+    from ..views.progress import progress
     from .common import site_environment
 
     env = site_environment(args.site)
     setup = build_target(default_target(args.model, args.target))
-    summary = tag_file(Path(args.events), Path(args.out), setup, env, Scale(args.scale),
-                       Path(args.table_cache) if args.table_cache else None,
-                       progress=None if args.quiet else sys.stderr)
+    quiet = io.StringIO() if args.quiet else None  # the bar drawn nowhere
+    with progress("tagging events", stream=quiet) as advance:
+        summary = tag_file(Path(args.events), Path(args.out), setup, env, Scale(args.scale),
+                           Path(args.table_cache) if args.table_cache else None,
+                           on_batch=advance)
     print("\n".join(summary.lines()))
     return 0

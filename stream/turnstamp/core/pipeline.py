@@ -238,7 +238,7 @@ class Pipeline:
         return out
 
     def significance(self) -> list[dict]:
-        """One row per target x recipe x window (see ``io.schemas.SIGNIFICANCE``)."""
+        """One row per target x recipe x window (see ``files.schemas.SIGNIFICANCE``)."""
         rows = []
         trials = self.trials
         for name, target in self.targets.items():
@@ -276,7 +276,7 @@ class Pipeline:
         return self.frequency_hz(target) * (1.0 + rate)
 
     def profiles(self) -> list[dict]:
-        """One row per target x recipe for the cumulative fold (``io.schemas.PROFILES``)."""
+        """One row per target x recipe for the cumulative fold (``files.schemas.PROFILES``)."""
         rows = []
         for name, target in self.targets.items():
             for r, recipe in enumerate(target.recipes):

@@ -1,7 +1,7 @@
 """Rows of the statistics read out of the pipeline: significance and profiles.
 
 Each row is a plain dict whose keys are the columns of the shell's Arrow streams
-(``io.schemas.SIGNIFICANCE`` and ``io.schemas.PROFILES``); the numbers come from the
+(``files.schemas.SIGNIFICANCE`` and ``files.schemas.PROFILES``); the numbers come from the
 moments alone, so the rows are deterministic given what was fed.
 """
 

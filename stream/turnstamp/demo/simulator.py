@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import sys
 import time
+from collections.abc import Callable
 
 import numpy as np
 
@@ -51,7 +52,8 @@ def demo_night(seconds: float, rate: float, pulsed_fraction: float, start_utc_ns
 def publish_night(endpoint: str, *, pattern: str = "push", bind: bool = False,
                   seconds: float = 60.0, rate: float = 20_000.0, pulsed_fraction: float = 0.01,
                   speed: float = 1.0, start: str | None = None, fault: str = "none",
-                  seed: int = 0, source: str = "simulator", out=sys.stderr) -> int:
+                  seed: int = 0, source: str = "simulator", out=sys.stderr,
+                  on_batch: Callable[[int], None] | None = None) -> int:
     """Publish a simulated night with ``EventPublisher``; returns the exit status (0).
 
     Parameters
@@ -76,6 +78,8 @@ def publish_night(endpoint: str, *, pattern: str = "push", bind: bool = False,
         Source name in the message headers.
     out : file, optional
         Where the closing line is printed (None: silent).
+    on_batch : callable, optional
+        Called with the number of events of each message sent (progress).
     """
     start_utc = parse_instant(start) if start else unix_to_ns(time.time())
     batches, _, _ = demo_night(seconds, rate, pulsed_fraction, start_utc, fault, seed,
@@ -94,6 +98,8 @@ def publish_night(endpoint: str, *, pattern: str = "push", bind: bool = False,
                     time.sleep(delay)
             publisher.send(**batch.columns())
             sent += len(batch)
+            if on_batch is not None:
+                on_batch(len(batch))
         if out is not None:
             print(f"simulator: sent {sent} events in {publisher.sequence} messages to "
                   f"{endpoint}", file=out)

@@ -8,6 +8,8 @@
 ``message_scan``    walking a file's IPC messages: a cut tail versus corruption
 ``arrow_metadata``  the two fields of IPC message metadata pyarrow does not expose
 ``recovery``        finishing footer-less files at start-up
+``outputs``         pipeline results as Arrow tables of the output schemas
+``ledger``          the per-message commit: archive rows, rejects rows, one ledger row
 ``inputs``          TOML/JSON spin-model and template files with exact decimals
 ``bundled``         leap seconds, Earth orientation, JPL kernel from installed packages
 """

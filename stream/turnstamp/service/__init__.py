@@ -2,14 +2,15 @@
 
 ``loop``        the ``Service`` object and its receive -> decode -> feed -> write loop
 ``intake``      sockets, draining, decoding and sequence checks of each message
-``ledger``      the per-message commit: archive rows, rejects rows, one ledger row
 ``checkpoint``  the state between two messages, in ``checkpoint.json``
 ``recovery``    resuming after a crash: replay after the checkpoint, drop the uncommitted
 ``control``     the REQ/REP control commands
 ``status``      the status document: ``status.json`` and the PUB updates
 ``upkeep``      model and template reload, barycentre tables built ahead of need
 ``startup``     configuration -> pipeline and output writers
-``outputs``     pipeline results -> Arrow tables
+
+The per-message commit (``files.ledger``) and the tables it writes
+(``files.outputs``) are shared with offline tagging.
 """
 
 __all__: list[str] = []

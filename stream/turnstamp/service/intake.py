@@ -28,9 +28,9 @@ from ..config import IntakeConfig, ServiceConfig
 from ..core.accounting import MessageRecord
 from ..core.batch import EventBatch
 from ..errors import RejectReason, WireError
+from ..files.outputs import message_reject_table
 from ..wire.decode import decode_message
 from ..wire.sequence import SequenceKind, SequenceTracker
-from .outputs import message_reject_table
 
 __all__ = ["ZMQ_SIZE_LIMIT_FACTOR", "MAX_SOURCES", "Sockets", "open_sockets", "drain",
            "Admitted", "Refused", "Admission"]

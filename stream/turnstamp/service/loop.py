@@ -39,11 +39,11 @@ from ..core.accounting import MessageRecord
 from ..core.timebase import unix_to_ns
 from ..files import schemas
 from ..files.durable import atomic_write_text
+from ..files.ledger import Ledger
+from ..files.outputs import archive_tables, clock_table, rejects_table, rows_table
 from . import control
 from .checkpoint import checkpoint_state, write_checkpoint
 from .intake import Admission, Admitted, Refused, Sockets, drain, open_sockets
-from .ledger import Ledger
-from .outputs import archive_tables, clock_table, rejects_table, rows_table
 from .recovery import resume
 from .startup import build_pipeline, open_writers, output_metadata
 from .status import STATUS_FILE, Activity, json_text, status_document

@@ -37,11 +37,11 @@ import pyarrow as pa
 
 from ..core.accounting import ACCEPTED, Counters, MessageRecord
 from ..core.pipeline import Pipeline
+from ..files.ledger import count_rejects, message_keys
 from ..files.reader import read_arrow_file, stream_files
 from ..files.recovery import recover_partial_files
 from ..wire.sequence import SequenceTracker
 from .checkpoint import read_checkpoint
-from .ledger import count_rejects, message_keys
 
 __all__ = ["tail_batches", "drop_uncommitted", "Resumed", "resume"]
 

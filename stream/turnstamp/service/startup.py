@@ -85,7 +85,7 @@ def output_metadata(config: ServiceConfig, env: Environment,
 
 def open_writers(out: Path, config: ServiceConfig, metadata: dict[str, str],
                  clock: Callable[[], float]) -> dict[str, RotatingArrowWriter]:
-    """One rotating writer per output stream (``io.schemas.OUTPUTS``)."""
+    """One rotating writer per output stream (``files.schemas.OUTPUTS``)."""
     o = config.output
     return {stem: RotatingArrowWriter(out, stem, schema, rotate_seconds=o.rotate_minutes * 60,
                                       rotate_bytes=int(o.rotate_megabytes * 2**20),

@@ -2,7 +2,7 @@
 
 The report reads an output folder, never the service: the Arrow streams
 (``archive``, ``significance``, ``profiles``, ``clock``, ``ledger``, ``rejects``,
-read with ``io.sinks`` so that open files of a live folder count up to their
+read with ``files.reader`` so that open files of a live folder count up to their
 last complete batch), ``status.json`` when present, and the provenance in the
 files' schema metadata. A folder written by ``turnstamp tag`` holds one file of
 archive schema under any name (and perhaps its rejects); the report then builds
@@ -28,10 +28,11 @@ target together, ``page`` writes the HTML, ``build`` assembles the report and
 
 from __future__ import annotations
 
+from ...errors import ReportError
 from .build import build_report
 from .command import report_main
 from .figures import OKABE_ITO
-from .night import NightFolder, ReportError, load_night
+from .night import NightFolder, load_night
 from .timegrid import GRID_S
 
 __all__ = [

@@ -11,11 +11,10 @@ import sys
 import time
 from pathlib import Path
 
-from ...errors import ArrowFileError
+from ...errors import ArrowFileError, ReportError
 from ..progress import progress
 from .build import build_report
 from .figures import import_matplotlib
-from .night import ReportError
 
 __all__ = ["report_main"]
 

@@ -8,7 +8,7 @@ import io
 import numpy as np
 
 from ...core.timebase import NS_PER_S
-from .night import ReportError
+from ...errors import ReportError
 from .timegrid import UtcHours
 
 __all__ = [

@@ -10,12 +10,11 @@ from typing import Any
 
 import pyarrow as pa
 
-from ...errors import ArrowFileError
+from ...errors import ArrowFileError, ReportError
 from ...files import schemas
 from ...files.reader import read_arrow_file, read_arrow_file_report, stream_files
 
 __all__ = [
-    "ReportError",
     "NightFolder",
     "load_night",
     "metadata_of",
@@ -24,10 +23,6 @@ __all__ = [
     "recipes_from_metadata",
     "config_targets",
 ]
-
-
-class ReportError(RuntimeError):
-    """The report cannot be built (missing optional dependency, no outputs)."""
 
 
 @dataclass

@@ -4,8 +4,8 @@ import pyarrow as pa
 
 from turnstamp.core.accounting import ACCEPTED, MessageRecord
 from turnstamp.files import schemas
-from turnstamp.service.ledger import Ledger
-from turnstamp.service.outputs import message_reject_table, rows_table
+from turnstamp.files.ledger import Ledger
+from turnstamp.files.outputs import message_reject_table, rows_table
 
 
 class Recorder:

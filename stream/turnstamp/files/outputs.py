@@ -1,4 +1,4 @@
-"""Pipeline results as Arrow tables in the schemas of ``io.schemas``.
+"""Pipeline results as Arrow tables in the schemas of ``files.schemas``.
 
 Numeric columns are wrapped without copies; repeated strings (source, target,
 model, reason) are dictionary-encoded from their indices.
@@ -15,7 +15,7 @@ import pyarrow as pa
 from ..core.accounting import FeedResult
 from ..core.batch import EventBatch
 from ..core.targets import TargetSetup
-from ..files import schemas
+from . import schemas
 
 __all__ = ["archive_table", "archive_tables", "rejects_table", "message_reject_table",
            "ledger_table", "rows_table", "clock_table"]
