@@ -3,7 +3,9 @@
 :class:`TimeBinnedMoments` keeps one :class:`~turnstamp.core.moments.PhaseMoments`
 per interval of event time, so that any window, the night's total and the chunks of
 the clock check cost O(number of intervals), never a pass over the events. Partials
-add, so objects filled separately (by batch, worker or night) merge exactly.
+add, so objects filled separately (by batch, worker or night) merge exactly. A batch
+is grouped by interval in one vectorised pass and summed by one call of the
+moments' kernel (``harmonicsums.segment_sums``), however many intervals it spans.
 
 The module does no I/O, holds no clock and imports neither zmq nor pyarrow.
 """
@@ -17,6 +19,7 @@ import numpy as np
 
 from turnstamp.errors import InputError
 
+from .harmonicsums import segment_sums
 from .moments import DEFAULT_BINS, MAX_HARMONICS, PhaseMoments, positive_int
 from .momentstate import STATE_VERSION, check_keys, state_int
 
@@ -64,15 +67,19 @@ class TimeBinnedMoments:
     def update(self, times_ns, phases, weights=None) -> TimeBinnedMoments:
         """Add events at ``times_ns`` (int64 ns) with ``phases`` and optional ``weights``.
 
-        Any order works; a batch that is time-sorted (the usual case, one or two
-        intervals) is split without sorting. Returns ``self``.
+        Any order works. The events are grouped by interval in one vectorised pass
+        (a time-sorted batch, the usual case, without sorting) and summed per
+        interval by one call of the moments' kernel. Atomic: on a bad phase or
+        weight it raises ``ValueError`` and changes nothing. Returns ``self``.
         """
         times, phases, weights = _timed_event_arrays(times_ns, phases, weights)
         if times.size == 0:
             return self
-        groups, phases, weights = _interval_groups(times // self.interval_ns, phases, weights)
-        for interval, part in groups:
-            self._slot(interval).update(phases[part], None if weights is None else weights[part])
+        intervals, starts, phases, weights = _interval_segments(times // self.interval_ns,
+                                                                phases, weights)
+        found = segment_sums(phases, weights, starts, self.harmonics, self.bins)
+        for row, interval in enumerate(intervals.tolist()):
+            self._slot(interval).add_segment(found, row, weights is not None)
         newest = int(times.max())
         if self.latest_ns is None or newest > self.latest_ns:
             self.latest_ns = newest
@@ -296,8 +303,8 @@ def _matching_moments(state, field, harmonics, bins) -> PhaseMoments:
 
 
 def _timed_event_arrays(times_ns, phases, weights):
-    """Times (int64 ns), phases and weights as vectors of one length, values checked
-    before any interval is touched, so that a bad batch changes nothing."""
+    """Times (int64 ns), phases and weights as vectors of one length (their values are
+    checked by the kernel before any interval is touched)."""
     times = np.asarray(times_ns).reshape(-1)
     if times.dtype.kind not in "iu":
         raise TypeError(f"times_ns must be integer nanoseconds, got dtype {times.dtype}")
@@ -309,28 +316,26 @@ def _timed_event_arrays(times_ns, phases, weights):
         weights = np.ascontiguousarray(weights, dtype=np.float64).reshape(-1)
         if weights.shape != times.shape:
             raise ValueError(f"weights has {weights.size} values but times_ns has {times.size}")
-    if times.size and not np.isfinite(phases).all():
-        raise ValueError("phases must be finite")
-    if times.size and weights is not None \
-            and not (np.isfinite(weights).all() and (weights >= 0).all()):
-        raise ValueError("weights must be finite and >= 0")
     return times, phases, weights
 
 
-def _interval_groups(index, phases, weights):
-    """(interval index, slice) groups of a batch, and the phases and weights in that order.
+def _interval_segments(index, phases, weights):
+    """Intervals present (ascending), the first event of each, and the phases and
+    weights in that order.
 
-    A batch within one interval is one group; a time-sorted batch is cut where the
-    index changes; any other is first sorted (stably) by interval.
+    A time-sorted batch (the usual case) is cut where the index changes; any other
+    is first sorted (stably) by interval.
     """
-    first = int(index[0])
-    if index.size == 1 or (int(index[-1]) == first and (index == first).all()):
-        return [(first, slice(None))], phases, weights
-    if not (np.diff(index) >= 0).all():
+    if index.size > 1 and not (index[1:] >= index[:-1]).all():
         order = np.argsort(index, kind="stable")
         index, phases = index[order], phases[order]
         if weights is not None:
             weights = weights[order]
-    bounds = [0, *(np.flatnonzero(np.diff(index)) + 1).tolist(), index.size]
-    groups = [(int(index[a]), slice(a, b)) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
-    return groups, phases, weights
+    if index[0] == index[-1]:
+        return index[:1], _FIRST, phases, weights
+    starts = np.flatnonzero(index[1:] != index[:-1]) + 1
+    starts = np.concatenate([_FIRST, starts])
+    return index[starts], starts, phases, weights
+
+
+_FIRST = np.zeros(1, dtype=np.intp)
