@@ -61,6 +61,16 @@ def lantern_table(demo_env, night_start_tt):
         setup.position, night_start_tt - 3600 * NS_PER_S, night_start_tt + 6 * 3600 * NS_PER_S)
 
 
+@pytest.fixture(scope="session")
+def demo_site_file(tmp_path_factory):
+    """A site file with the demo's invented site (``tag`` wants a site named)."""
+    from turnstamp.demo import site_toml
+
+    path = tmp_path_factory.mktemp("site") / "site.toml"
+    path.write_text(site_toml())
+    return path
+
+
 @pytest.fixture
 def lantern(lantern_table):
     """A fresh TargetSetup for the invented pulsar with two recipes."""

@@ -60,7 +60,7 @@ def test_schemas_check_and_inspect(tmp_path, capsys):
     assert main(["inspect", str(tmp_path / "nothing-here")]) == 2
 
 
-def test_inspect_an_archive_file(tmp_path, capsys):
+def test_inspect_an_archive_file(tmp_path, capsys, demo_site_file):
     import numpy as np
     import pyarrow as pa
 
@@ -71,7 +71,7 @@ def test_inspect_an_archive_file(tmp_path, capsys):
         w.write_table(table)
     out = tmp_path / "tagged.arrow"
     assert main(["tag", str(events), "--model", data_file("lantern.toml"), "--out", str(out),
-                 "--quiet"]) == 0
+                 "--site", str(demo_site_file), "--quiet"]) == 0
     capsys.readouterr()
     assert main(["inspect", str(out), "--json", "--rows", "2"]) == 0
     summary = json.loads(capsys.readouterr().out)

@@ -319,7 +319,7 @@ def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, t
 
 
 def test_offline_tagging_output_alone_gives_a_report(tmp_path, demo_env, lantern,
-                                                     night_start_tt):
+                                                     night_start_tt, demo_site_file):
     from turnstamp.commands.main import main
 
     plan = NightPlan(start_tt_ns=night_start_tt, duration_s=120, pulsed_rate_hz=40,
@@ -333,7 +333,8 @@ def test_offline_tagging_output_alone_gives_a_report(tmp_path, demo_env, lantern
         w.write_table(events, max_chunksize=5000)
     folder = tmp_path / "tagged"
     assert main(["tag", str(source), "--model", data_file("lantern.toml"), "--out",
-                 str(folder / "night-of-dec-2.arrow"), "--target", "lantern", "--quiet"]) == 0
+                 str(folder / "night-of-dec-2.arrow"), "--target", "lantern",
+                 "--site", str(demo_site_file), "--quiet"]) == 0
     index = build_report(folder)
     data = json.loads((index.parent / "report-data.json").read_text())
     assert data["mode"] == "tagging"

@@ -22,15 +22,16 @@ def add_parser(subparsers) -> None:
 def run(args) -> int:
     import numpy as np
 
-    from ..assemble import TableCache, build_target
+    from ..assemble import TableCache
     from ..config import BarycentreConfig
     from ..core.timebase import Scale, format_instant, parse_instant, to_tt
-    from ..tagging import default_target
+    from ..files.inputs import load_spin_model
+    from ..tagging.run import offline_target
     from ..views.progress import progress
     from .common import site_environment
 
     env = site_environment(args.site)
-    setup = build_target(default_target([args.model]))
+    setup = offline_target([load_spin_model(args.model)])
     (start, stop), _ = to_tt(np.array([parse_instant(args.start), parse_instant(args.stop)]),
                              Scale.UTC, env.leaps)
     with progress("building the barycentre table"):

@@ -144,7 +144,8 @@ def check_values(batch: EventBatch, earliest_ns: int, latest_ns: int,
     codes = np.zeros(n, np.uint8)
 
     def refuse(mask, code: RejectCode):
-        np.copyto(codes, np.uint8(code), where=mask & (codes == 0))
+        if mask.any():  # the usual batch refuses nothing: one pass per check
+            np.copyto(codes, np.uint8(code), where=mask & (codes == 0))
 
     def present(*names) -> bool:
         return all(getattr(batch, name) is not None and (checked is None or name in checked)
@@ -153,7 +154,8 @@ def check_values(batch: EventBatch, earliest_ns: int, latest_ns: int,
     time = batch.time_ns
     refuse(batch.event_id == MISSING_ID, RejectCode.MISSING_EVENT_ID)
     refuse(time == MISSING_TIME, RejectCode.MISSING_TIME)
-    refuse((time < earliest_ns) | (time > latest_ns), RejectCode.IMPLAUSIBLE_TIME)
+    if n and (time.min() < earliest_ns or time.max() > latest_ns):
+        refuse((time < earliest_ns) | (time > latest_ns), RejectCode.IMPLAUSIBLE_TIME)
     if present("energy_kev"):
         refuse(~(batch.energy_kev >= 0) | ~np.isfinite(batch.energy_kev), RejectCode.BAD_ENERGY)
     if present("ra_deg", "dec_deg"):

@@ -111,12 +111,11 @@ def tag_targets(batch: EventBatch, timed: TimedBatch,
     """
     targets = list(targets)
     codes, valid = timed.codes, timed.valid
-    covered = np.ones(len(batch), bool)
     for target in targets:
-        covered &= target.tagger.table.contains(timed.tt_ns)
-    if not covered.all():
-        codes[valid & ~covered] = RejectCode.OUTSIDE_TABLE_COVERAGE
-        valid = valid & covered
+        covered = target.tagger.table.contains(timed.tt_ns)
+        if not covered.all():
+            codes[valid & ~covered] = RejectCode.OUTSIDE_TABLE_COVERAGE
+            valid = valid & covered
     tagged = np.zeros(len(batch), bool)
     archive: dict[str, dict[str, np.ndarray]] = {}
     for target in targets:
@@ -126,11 +125,12 @@ def tag_targets(batch: EventBatch, timed: TimedBatch,
             archive[target.name] = found.columns
     refused = np.flatnonzero(codes)
     reasons, details = describe_rejects(codes[refused])
-    valid_tt = timed.tt_ns[valid]
+    valid_tt = timed.tt_ns if refused.size == 0 else timed.tt_ns[valid]
+    tagged_count = int(np.count_nonzero(tagged))
     return FeedResult(
         archive=archive, rejected_index=refused, rejected_reason=reasons,
-        rejected_detail=details, events=len(batch), tagged=int(tagged.sum()),
-        filtered=int((valid & ~tagged).sum()),
+        rejected_detail=details, events=len(batch), tagged=tagged_count,
+        filtered=len(batch) - refused.size - tagged_count,
         first_tt_ns=int(valid_tt.min()) if valid_tt.size else None,
         last_tt_ns=int(valid_tt.max()) if valid_tt.size else None)
 

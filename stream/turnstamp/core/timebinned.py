@@ -75,7 +75,7 @@ class TimeBinnedMoments:
         times, phases, weights = _timed_event_arrays(times_ns, phases, weights)
         if times.size == 0:
             return self
-        intervals, starts, phases, weights = _interval_segments(times // self.interval_ns,
+        intervals, starts, phases, weights = _interval_segments(times, self.interval_ns,
                                                                 phases, weights)
         found = segment_sums(phases, weights, starts, self.harmonics, self.bins)
         for row, interval in enumerate(intervals.tolist()):
@@ -319,23 +319,33 @@ def _timed_event_arrays(times_ns, phases, weights):
     return times, phases, weights
 
 
-def _interval_segments(index, phases, weights):
+def _interval_segments(times, interval_ns, phases, weights):
     """Intervals present (ascending), the first event of each, and the phases and
     weights in that order.
 
-    A time-sorted batch (the usual case) is cut where the index changes; any other
-    is first sorted (stably) by interval.
+    A time-sorted batch (the usual case) is cut at the interval boundaries found by
+    binary search (no pass computing every event's interval); any other is first
+    sorted (stably) by interval.
     """
-    if index.size > 1 and not (index[1:] >= index[:-1]).all():
+    if times.size > 1 and not (times[1:] >= times[:-1]).all():
+        index = times // interval_ns
         order = np.argsort(index, kind="stable")
         index, phases = index[order], phases[order]
         if weights is not None:
             weights = weights[order]
-    if index[0] == index[-1]:
-        return index[:1], _FIRST, phases, weights
-    starts = np.flatnonzero(index[1:] != index[:-1]) + 1
-    starts = np.concatenate([_FIRST, starts])
-    return index[starts], starts, phases, weights
+        starts = np.concatenate([_FIRST, np.flatnonzero(index[1:] != index[:-1]) + 1])
+        return index[starts], starts, phases, weights
+    first, last = int(times[0]) // interval_ns, int(times[-1]) // interval_ns
+    if first == last:
+        return np.array([first]), _FIRST, phases, weights
+    if last - first > times.size:  # sparse over a long span: cut where the index changes
+        index = times // interval_ns
+        starts = np.concatenate([_FIRST, np.flatnonzero(index[1:] != index[:-1]) + 1])
+        return index[starts], starts, phases, weights
+    intervals = np.arange(first, last + 1)
+    starts = np.concatenate([_FIRST, np.searchsorted(times, intervals[1:] * interval_ns)])
+    filled = np.diff(starts, append=times.size) > 0
+    return intervals[filled], starts[filled], phases, weights
 
 
 _FIRST = np.zeros(1, dtype=np.intp)

@@ -1,0 +1,80 @@
+"""Event files read as a stream of record batches, in bounded memory.
+
+Arrow IPC files and streams are read batch by batch from an ordinary file (not a
+memory map, whose touched pages would stay resident up to the file's size);
+Parquet files are decoded ``READ_ROWS`` rows at a time. Only one batch is held at
+a time, whatever the file's size. The file's own batches are kept as they are (a
+batch is a unit of the output's ``sequence`` column and of the duplicate-id check).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from pathlib import Path
+
+import pyarrow as pa
+
+from ..errors import EventFileError
+
+__all__ = ["READ_ROWS", "EventReader", "open_events"]
+
+READ_ROWS = 1 << 20  # rows per Parquet read: bounds memory whatever the file size
+
+
+class EventReader:
+    """The record batches of one event file, in order (iterate once)."""
+
+    def __init__(self, path: Path):
+        self.path = path
+        self.rows: int | None = None  # total rows when the file says so cheaply
+        self._source = None
+        self._batches = self._open()
+
+    def _open(self) -> Iterator[pa.RecordBatch]:
+        if self.path.suffix.lower() == ".parquet":
+            import pyarrow.parquet as pq
+
+            parquet = pq.ParquetFile(self.path)
+            self.rows = parquet.metadata.num_rows
+            return parquet.iter_batches(batch_size=READ_ROWS)
+        self._source = pa.OSFile(str(self.path), "rb")
+        try:
+            reader = pa.ipc.open_file(self._source)
+        except pa.ArrowInvalid:
+            self._source.seek(0)
+            return iter(pa.ipc.open_stream(self._source))
+        return (reader.get_batch(i) for i in range(reader.num_record_batches))
+
+    def __iter__(self) -> Iterator[pa.RecordBatch]:
+        try:
+            yield from self._batches
+        except (OSError, pa.ArrowException) as exc:
+            raise EventFileError("events", str(self.path),
+                                 f"cannot read as Arrow or Parquet: {exc}") from None
+        finally:
+            self.close()
+
+    def close(self) -> None:
+        if self._source is not None:
+            self._source.close()
+            self._source = None
+
+
+def open_events(path: Path) -> EventReader:
+    """An ``EventReader`` for an Arrow IPC file or stream, or Parquet (by the suffix).
+
+    Raises
+    ------
+    EventFileError
+        The file is missing, a folder, or not readable as Arrow or Parquet.
+    """
+    if not path.exists():
+        raise EventFileError("events", str(path), "no such file")
+    if path.is_dir():
+        raise EventFileError("events", str(path), "is a folder; give one Arrow IPC or "
+                             "Parquet file")
+    try:
+        return EventReader(path)
+    except (OSError, pa.ArrowException) as exc:
+        raise EventFileError("events", str(path),
+                             f"cannot read as Arrow or Parquet: {exc}") from None
