@@ -106,7 +106,7 @@ def _event_batch(record: pa.RecordBatch, job: TagJob, sequence: int) -> EventBat
         raise EventFileError("time_ns", None, f"{job.label}: required column missing; "
                              f"columns: {record.schema.names}")
     raw = record.column("time_ns")
-    converted = to_instants(raw, job.convention, label)
+    converted = to_instants(raw, job.convention, label, job.plausible)
     if converted is not raw:
         record = record.set_column(record.schema.get_field_index("time_ns"), "time_ns",
                                    converted)

@@ -124,8 +124,11 @@ def _instant(ns: float) -> str:
         return _day(ns)
 
 
-def to_instants(column: pa.Array, convention: TimeConvention, label: str) -> pa.Array:
+def to_instants(column: pa.Array, convention: TimeConvention, label: str,
+                plausible: PlausibleRange | None = None) -> pa.Array:
     """A time column in ``convention`` as int64 ns since 2000-01-01T12:00:00 (nulls kept).
+
+    ``plausible`` (when given) lets a refusal name the conventions that would fit.
 
     Raises
     ------
@@ -137,7 +140,7 @@ def to_instants(column: pa.Array, convention: TimeConvention, label: str) -> pa.
         return _timestamp_instants(column, convention, label)
     if pa.types.is_floating(kind) and convention.unit_ns == 1:
         raise EventFileError("time_ns", str(kind), f"{label}: must be an integer column of "
-                             "ns since the time origin" + _float_hint(column))
+                             "ns since the time origin" + _float_hint(column, plausible))
     if convention.is_native or not (pa.types.is_integer(kind) or pa.types.is_floating(kind)):
         return column  # the wire format's own checks name any other type
     values = column.fill_null(0).to_numpy(zero_copy_only=False)
@@ -175,23 +178,28 @@ def _raw_median(column: pa.Array) -> float | None:
     return float(np.median(values)) if values.size else None
 
 
-def _float_hint(column: pa.Array) -> str:
+def _float_hint(column: pa.Array, plausible: PlausibleRange | None) -> str:
     median = _raw_median(column)
     if median is None:
         return ""
     if 30_000 < median < 100_000:
         return (f" (the values, about {median:.1f}, look like MJD days: convert them to "
                 "integer ns; a float MJD cannot hold a time to better than a microsecond)")
-    return _readings_hint(median, None)
+    return _readings_hint(median, plausible)
 
 
-def _readings_hint(raw_median: float, plausible: PlausibleRange | None) -> str:
-    """``; they look like ...`` naming the readings of the raw value that are plausible."""
+def _readings_hint(raw_median: float, plausible: PlausibleRange | None,
+                   current: TimeConvention | None = None) -> str:
+    """``; read as ...`` naming the readings of the raw value that are plausible (and
+    not themselves within 40 days of their origin), most common first."""
     found = []
     for origin, unit in _READINGS:
+        if current is not None and (origin, unit) == (current.origin, current.unit or "ns"):
+            continue
         ns = raw_median * UNITS[unit] + ORIGINS[origin]
         lowest = ORIGINS["unix"] + 20 * 365 * NS_PER_DAY  # 1990, when no range is known
-        if (plausible.contains(ns) if plausible else lowest <= ns <= 100 * 365 * NS_PER_DAY):
+        fits = plausible.contains(ns) if plausible else lowest <= ns <= 100 * 365 * NS_PER_DAY
+        if fits and abs(ns - ORIGINS[origin]) >= _NEAR_ORIGIN_NS:
             found.append((origin, unit, ns))
     if not found:
         return ""
@@ -233,7 +241,7 @@ def check_times(times_ns: np.ndarray, raw: pa.Array, convention: TimeConvention,
     shown = int(np.median(times_ns))
     read = f"{label}: read as {convention.words()}, "
     median = _raw_median(raw)
-    hint = "" if median is None else _readings_hint(median, plausible)
+    hint = "" if median is None else _readings_hint(median, plausible, convention)
     if near:
         problem = (read + f"all {times_ns.size:,} times lie within 40 days of the origin, "
                    f"e.g. {_instant(shown)}" + hint
@@ -242,8 +250,10 @@ def check_times(times_ns: np.ndarray, raw: pa.Array, convention: TimeConvention,
         problem = (read + f"{outside:,} of {times_ns.size:,} times fall outside the plausible "
                    f"range {plausible.words()}, e.g. {_instant(shown)}"
                    + (hint or "; no common convention makes them plausible: check the column"))
-    raise EventFileError("time_ns", _raw(median if median is not None else shown), problem)
+    raise EventFileError("time_ns", _first(raw), problem)
 
 
-def _raw(value: float):
-    return int(value) if float(value).is_integer() else value
+def _first(raw: pa.Array):
+    """The first present value of the column, exactly as the file holds it."""
+    present = raw.drop_null()
+    return present[0].as_py() if len(present) else None
