@@ -76,7 +76,7 @@ class TimedBatch(NamedTuple):
 class TaggedRows(NamedTuple):
     """What one target tagged in a batch: the batch rows, and their archive columns."""
 
-    rows: np.ndarray  # indices into the batch
+    rows: np.ndarray | slice  # indices into the batch (a slice: every row)
     columns: dict[str, np.ndarray]  # archive column name -> values for those rows
 
 
@@ -153,8 +153,10 @@ def _tag_target(target: TargetSetup, batch: EventBatch, valid: np.ndarray,
                 timed: TimedBatch) -> TaggedRows | None:
     rows, cos_distance = _selected(target, batch, valid)
     whole = bool(rows.all())
-    index = np.arange(len(batch)) if whole else np.flatnonzero(rows)
-    if index.size == 0:
+    picked = None if whole else np.flatnonzero(rows)
+    index: np.ndarray | slice = slice(None) if picked is None else picked
+    count = len(batch) if picked is None else picked.size
+    if count == 0:
         return None
     sub = batch if whole else batch.take(index)
     sub_distance = cos_distance if whole or cos_distance is None else cos_distance[index]
@@ -164,9 +166,13 @@ def _tag_target(target: TargetSetup, batch: EventBatch, valid: np.ndarray,
         extra = extra[index]
     result = target.tagger.tag(tt_ns, extra)
     quality = (timed.flags if whole else timed.flags[index]) | result.flags
-    recipe_flags = np.zeros(index.size, np.uint32)
+    recipe_flags = np.zeros(count, np.uint32)
     for bit, recipe in enumerate(target.recipes):
-        recipe_flags[recipe.select(sub, sub_distance)] |= np.uint32(1 << bit)
+        selected = recipe.select(sub, sub_distance)
+        if selected.all():  # no masked writes for a recipe taking every event
+            recipe_flags |= np.uint32(1 << bit)
+        else:
+            recipe_flags[selected] |= np.uint32(1 << bit)
     return TaggedRows(index, {
         "event_id": sub.event_id,
         "site_tt_ns": tt_ns,
@@ -174,7 +180,7 @@ def _tag_target(target: TargetSetup, batch: EventBatch, valid: np.ndarray,
         "barycentric_correction_s": result.correction_s,
         "phase": result.phase,
         "pulse_number": result.pulse_number,
-        "weight": np.ones(index.size) if sub.weight is None else sub.weight,
+        "weight": np.ones(count) if sub.weight is None else sub.weight,
         "recipe_flags": recipe_flags,
         "model_index": result.model_index.astype(np.int32),  # into tagger.model_ids
         "quality_flags": quality,

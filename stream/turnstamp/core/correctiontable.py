@@ -220,10 +220,10 @@ class TableSet:
         if not self._tables or tt_ns.size == 0:
             return (np.full(tt_ns.shape, np.nan), np.zeros(tt_ns.shape, np.uint32),
                     np.zeros(tt_ns.shape, bool))
-        piece = self._piece(tt_ns)
-        first, last = int(piece.min()), int(piece.max())
-        if first == last and first >= 0:
+        first, last = (int(p) for p in self._piece(np.array([tt_ns.min(), tt_ns.max()])))
+        if first == last and first >= 0:  # the usual case: no lookup per instant
             return self._tables[first].evaluate(tt_ns)
+        piece = self._piece(tt_ns)
         values = np.full(tt_ns.shape, np.nan)
         flags = np.zeros(tt_ns.shape, np.uint32)
         inside = np.zeros(tt_ns.shape, bool)

@@ -117,6 +117,26 @@ class PhaseMoments:
         self.add_segment(found, 0, weights is not None)
         return self
 
+    @classmethod
+    def from_segment(cls, found: SegmentSums, row: int, weighted: bool) -> PhaseMoments:
+        """New moments holding row ``row`` of ``harmonicsums.segment_sums`` output (one
+        segment of events; ``weighted``: they came with weights)."""
+        if int(found.counts[row]) == 0:
+            return cls(found.sums.shape[1], found.hist_w.shape[1])
+        new = cls.__new__(cls)
+        new.harmonics, new.bins = found.sums.shape[1], found.hist_w.shape[1]
+        new.count = int(found.counts[row])
+        new.weighted = weighted
+        new.cos_sums = found.sums[row].real.copy()
+        new.sin_sums = found.sums[row].imag.copy()
+        new.hist_w = found.hist_w[row].copy()
+        new.hist_w2 = found.hist_w2[row].copy()
+        if weighted:
+            new.sum_w, new.sum_w2 = float(new.hist_w.sum()), float(new.hist_w2.sum())
+        else:
+            new.sum_w = new.sum_w2 = float(new.count)
+        return new
+
     def add_segment(self, found: SegmentSums, row: int, weighted: bool) -> None:
         """Add row ``row`` of ``harmonicsums.segment_sums`` output (the kernel's sums of
         one segment of events; ``weighted``: they came with weights)."""

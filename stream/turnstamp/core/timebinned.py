@@ -57,12 +57,17 @@ class TimeBinnedMoments:
     # -- accumulation ----------------------------------------------------------------------
 
     def _slot(self, index: int) -> PhaseMoments:
-        if self._expired_through is not None and index <= self._expired_through:
-            return self._expired
-        moments = self._intervals.get(index)
+        moments = self._held(index)
         if moments is None:
             moments = self._intervals[index] = PhaseMoments(self.harmonics, self.bins)
         return moments
+
+    def _held(self, index: int) -> PhaseMoments | None:
+        """The moments interval ``index`` adds to (the expired total for an expired one),
+        None when it has none yet."""
+        if self._expired_through is not None and index <= self._expired_through:
+            return self._expired
+        return self._intervals.get(index)
 
     def update(self, times_ns, phases, weights=None) -> TimeBinnedMoments:
         """Add events at ``times_ns`` (int64 ns) with ``phases`` and optional ``weights``.
@@ -78,8 +83,13 @@ class TimeBinnedMoments:
         intervals, starts, phases, weights = _interval_segments(times, self.interval_ns,
                                                                 phases, weights)
         found = segment_sums(phases, weights, starts, self.harmonics, self.bins)
+        weighted = weights is not None
         for row, interval in enumerate(intervals.tolist()):
-            self._slot(interval).add_segment(found, row, weights is not None)
+            held = self._held(interval)
+            if held is None:
+                self._intervals[interval] = PhaseMoments.from_segment(found, row, weighted)
+            else:
+                held.add_segment(found, row, weighted)
         newest = int(times.max())
         if self.latest_ns is None or newest > self.latest_ns:
             self.latest_ns = newest
@@ -199,7 +209,11 @@ class TimeBinnedMoments:
         if other._expired_through is not None:
             self._expire_through(other._expired_through)
         for index, part in other._intervals.items():
-            self._slot(index)._add_in_place(part)
+            held = self._held(index)
+            if held is None:
+                self._intervals[index] = part.copy()
+            else:
+                held._add_in_place(part)
         if other.latest_ns is not None and (self.latest_ns is None
                                             or other.latest_ns > self.latest_ns):
             self.latest_ns = other.latest_ns

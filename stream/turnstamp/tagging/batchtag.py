@@ -92,7 +92,7 @@ class TagJob:
 class TaggedBatch(NamedTuple):
     """One batch tagged: the batch, its accounting and archive columns (``FeedResult``;
     the target's columns are ``result.archive[target]``) and one statistics partial
-    per recipe."""
+    per recipe (those given as ``into``, when given)."""
 
     batch: EventBatch
     result: FeedResult
@@ -120,7 +120,8 @@ def _event_batch(record: pa.RecordBatch, job: TagJob, sequence: int) -> EventBat
     return batch
 
 
-def tag_record(record: pa.RecordBatch, job: TagJob, sequence: int) -> TaggedBatch:
+def tag_record(record: pa.RecordBatch, job: TagJob, sequence: int,
+               into: list[TimeBinnedMoments] | None = None) -> TaggedBatch:
     """Tag one record batch of an event file (see the module docstring).
 
     Parameters
@@ -131,6 +132,9 @@ def tag_record(record: pa.RecordBatch, job: TagJob, sequence: int) -> TaggedBatc
     job : TagJob
     sequence : int
         The batch's number in the input (the archive's ``sequence`` column).
+    into : list of TimeBinnedMoments, optional
+        One per recipe: add the batch's statistics to these (a run's totals) instead
+        of fresh partials; the same sums, without the cost of merging.
 
     Raises
     ------
@@ -142,7 +146,8 @@ def tag_record(record: pa.RecordBatch, job: TagJob, sequence: int) -> TaggedBatc
     if job.tables is not None:
         job.tables.cover(timed.tt_ns if timed.valid.all() else timed.tt_ns[timed.valid])
     result = tag_targets(batch, timed, [job.setup])
-    partials = [job.statistics.moments() for _ in job.setup.recipes]
+    partials = into if into is not None else [job.statistics.moments()
+                                              for _ in job.setup.recipes]
     columns = result.archive.get(job.setup.name)
     if columns is not None:
         add_recipe_moments(partials, job.setup.recipes, columns["site_tt_ns"], columns["phase"],

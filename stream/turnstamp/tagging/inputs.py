@@ -34,9 +34,11 @@ class EventReader:
         if self.path.suffix.lower() == ".parquet":
             import pyarrow.parquet as pq
 
-            parquet = pq.ParquetFile(self.path)
+            # no pre-buffering of whole row groups (80 MB more resident for 2^20-row
+            # groups), no decoding threads (tag is single-core)
+            parquet = pq.ParquetFile(self.path, pre_buffer=False)
             self.rows = parquet.metadata.num_rows
-            return parquet.iter_batches(batch_size=READ_ROWS)
+            return parquet.iter_batches(batch_size=READ_ROWS, use_threads=False)
         self._source = pa.OSFile(str(self.path), "rb")
         try:
             reader = pa.ipc.open_file(self._source)

@@ -107,7 +107,7 @@ class _Run:
 
     def feed(self, record: pa.RecordBatch, sequence: int, ledger: Ledger) -> None:
         """Tag one batch; commit its rows (archive, then rejects) and add its statistics."""
-        tagged = tag_record(record, self.job, sequence)
+        tagged = tag_record(record, self.job, sequence, into=list(self.totals.values()))
         result, name = tagged.result, self.job.setup.name
         archive = []
         columns = result.archive.get(name)
@@ -121,8 +121,6 @@ class _Run:
                                          message_bytes=0))
         ledger.commit(MessageRecord.accepted(0, self.job.source, sequence, result),
                       archive, rejects)
-        for total, part in zip(self.totals.values(), tagged.moments, strict=True):
-            total += part
 
     def summary(self, ledger: Ledger, output, rejects, started: float) -> TagSummary:
         counters = ledger.counters

@@ -1,0 +1,100 @@
+"""The whole ``turnstamp tag`` command, file to file, as a user runs it.
+
+Each run is a child process (``python -m turnstamp tag``) timed by the wall clock
+from its start to its exit, start-up included; its peak resident memory and CPU
+time come from the kernel's accounting of that child (``os.wait4``). Inputs are
+one night of ``event_id`` + ``time_ns`` in Arrow IPC (batches of 2^20 rows) and
+Parquet (row groups of 2^20 rows); barycentre tables come from a cache warmed by
+a first small run, as on a user's second night. Start-up is the wall clock of a
+run on a 1 000-event file.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["bench_tag_command"]
+
+_ROWS_PER_BATCH = 1 << 20
+_NIGHT_UTC = "2026-12-02T00:00:00"
+
+
+def _write_events(folder: Path, n: int) -> dict[str, Path]:
+    """One night of ``n`` events (10 hours, sorted) as Arrow IPC and as Parquet."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from ..core.timebase import NS_PER_S, parse_instant
+
+    start = parse_instant(_NIGHT_UTC)
+    times = np.sort(np.random.default_rng(11).integers(start, start + 10 * 3600 * NS_PER_S, n))
+    table = pa.table({"event_id": np.arange(n, dtype=np.uint64), "time_ns": times})
+    paths = {"arrow": folder / f"events-{n}.arrow", "parquet": folder / f"events-{n}.parquet"}
+    with pa.OSFile(str(paths["arrow"]), "wb") as sink, \
+            pa.ipc.new_file(sink, table.schema) as writer:
+        writer.write_table(table, max_chunksize=_ROWS_PER_BATCH)
+    pq.write_table(table, paths["parquet"], row_group_size=_ROWS_PER_BATCH)
+    return paths
+
+
+def _run_tag(events: Path, out: Path, site: Path, cache: Path) -> dict:
+    """One ``tag`` child: wall seconds, CPU seconds, peak RSS (MB) and its summary."""
+    from ..demo import data_file
+
+    command = [sys.executable, "-m", "turnstamp", "tag", str(events), "--model",
+               data_file("lantern.toml"), "--site", str(site), "--out", str(out),
+               "--table-cache", str(cache), "--json", "--force"]
+    with tempfile.TemporaryFile() as errors:
+        started = time.perf_counter()
+        child = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=errors)
+        stdout = child.stdout.read()  # the JSON summary, printed at the end
+        _, status, usage = os.wait4(child.pid, 0)  # reaps the child: its own rusage
+        seconds = time.perf_counter() - started
+        child.returncode = os.waitstatus_to_exitcode(status)
+        child.stdout.close()
+        if child.returncode != 0:
+            errors.seek(0)
+            raise RuntimeError(f"tag failed ({child.returncode}): {errors.read().decode()}")
+    return {"seconds": seconds, "cpu_s": usage.ru_utime + usage.ru_stime,
+            "rss_mb": usage.ru_maxrss / 1024, "summary": json.loads(stdout)}
+
+
+def bench_tag_command(n: int = 10**7) -> dict:
+    """Figures of the ``tag`` command on ``n`` events in both formats (see the module
+    docstring): events/s by the wall clock, peak RSS beyond the input's size."""
+    from ..demo import site_toml
+
+    out: dict = {"tag_events": n}
+    with tempfile.TemporaryDirectory(prefix="turnstamp-bench-tag-") as tmp:
+        folder = Path(tmp)
+        site = folder / "site.toml"
+        site.write_text(site_toml())
+        cache = folder / "tables"
+        small = _write_events(folder, 1000)["arrow"]
+        first = _run_tag(small, folder / "small.arrow", site, cache)  # builds the tables
+        warm = min((_run_tag(small, folder / "small.arrow", site, cache) for _ in range(3)),
+                   key=lambda run: run["seconds"])
+        out["tag_first_run_s"] = first["seconds"]
+        out["tag_startup_s"] = warm["seconds"]
+        for kind, events in _write_events(folder, n).items():
+            size_mb = events.stat().st_size / 2**20
+            run = _run_tag(events, folder / f"tagged-{kind}.arrow", site, cache)
+            (folder / f"tagged-{kind}.arrow").unlink()  # room on disk for the next
+            assert run["summary"]["tagged"] == n, run["summary"]
+            out[f"tag_{kind}_events_per_s"] = n / run["seconds"]
+            out[f"tag_{kind}_seconds"] = run["seconds"]
+            out[f"tag_{kind}_cpu_s"] = run["cpu_s"]
+            out[f"tag_{kind}_input_mb"] = size_mb
+            out[f"tag_{kind}_rss_mb"] = run["rss_mb"]
+            out[f"tag_{kind}_rss_over_input_mb"] = run["rss_mb"] - size_mb
+            events.unlink()
+    out["tag_events_per_s"] = min(out["tag_arrow_events_per_s"], out["tag_parquet_events_per_s"])
+    return out
