@@ -319,3 +319,34 @@ def test_summary_statistics_equal_a_direct_computation(tmp_path, events, demo_si
     assert summary["statistics"]["all"]["h_statistic"] == pytest.approx(direct.statistic,
                                                                          rel=1e-9)
     assert summary["statistics"]["all"]["h_sigma"] > 5  # the simulated pulsar is there
+
+
+def test_per_batch_partials_merge_by_addition_into_the_run_totals(tmp_path, events, demo_env):
+    # what a re-tagging job does: tag_record on each batch with fresh partials, summed in
+    # any grouping, gives the statistics of one run over the whole input (to rounding)
+    from functools import reduce
+
+    from turnstamp.core.timebase import Scale
+    from turnstamp.files.inputs import load_spin_model
+    from turnstamp.tagging.batchtag import tag_record
+    from turnstamp.tagging.run import _Run, offline_target
+    from turnstamp.tagging.times import TimeConvention
+
+    table = write_events(tmp_path / "events.arrow", events)
+    records = table.to_batches(max_chunksize=3000)
+    run = _Run(offline_target([load_spin_model(MODEL)]), demo_env, Scale.UTC, None,
+               "events", "events", TimeConvention())
+    partials = [tag_record(record, run.job, i).moments[0] for i, record in enumerate(records)]
+    totals = [run.job.statistics.moments()]
+    for i, record in enumerate(records):
+        tag_record(record, run.job, i, into=totals)
+    half = len(partials) // 2
+    merged = reduce(lambda a, b: a + b, partials[half:]) + reduce(lambda a, b: a + b,
+                                                                  partials[:half])
+    assert [start for start, _ in merged.intervals()] == [
+        start for start, _ in totals[0].intervals()]
+    one, other = merged.total(), totals[0].total()
+    assert one.count == other.count == table.num_rows
+    for name in ("cos_sums", "sin_sums", "hist_w", "hist_w2"):
+        np.testing.assert_allclose(getattr(one, name), getattr(other, name), rtol=0,
+                                   atol=1e-9 * one.sum_w, err_msg=name)
