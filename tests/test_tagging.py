@@ -350,3 +350,34 @@ def test_per_batch_partials_merge_by_addition_into_the_run_totals(tmp_path, even
     for name in ("cos_sums", "sin_sums", "hist_w", "hist_w2"):
         np.testing.assert_allclose(getattr(one, name), getattr(other, name), rtol=0,
                                    atol=1e-9 * one.sum_w, err_msg=name)
+
+
+def test_a_file_written_in_one_piece_is_tagged_in_bounded_slices(tmp_path, events,
+                                                                 demo_site_file, monkeypatch):
+    # a table written whole is one record batch; it is tagged READ_ROWS rows at a time
+    # (here 4000), each slice numbered as the batch, with the same rows as a file in
+    # small batches
+    import turnstamp.tagging.inputs as inputs
+
+    table = write_events(tmp_path / "small-batches.arrow", events)
+    write_table(tmp_path / "one-piece.arrow", table, chunk=None)
+    assert pa.ipc.open_file(str(tmp_path / "one-piece.arrow")).num_record_batches == 1
+    monkeypatch.setattr(inputs, "READ_ROWS", 4000)
+    seen = []
+    original = inputs.EventReader.__iter__
+
+    def spy(self):
+        for sequence, record in original(self):
+            seen.append((sequence, record.num_rows))
+            yield sequence, record
+
+    monkeypatch.setattr(inputs.EventReader, "__iter__", spy)
+    assert tag(tmp_path / "one-piece.arrow", "--out", tmp_path / "a.arrow",
+               site=demo_site_file) == 0
+    assert max(rows for _, rows in seen) == 4000 and {s for s, _ in seen} == {0}
+    assert tag(tmp_path / "small-batches.arrow", "--out", tmp_path / "b.arrow",
+               site=demo_site_file) == 0
+    one = pa.ipc.open_file(str(tmp_path / "a.arrow")).read_all()
+    other = pa.ipc.open_file(str(tmp_path / "b.arrow")).read_all()
+    for column in ("event_id", "phase", "pulse_number", "barycentric_tdb_ns"):
+        assert one[column].equals(other[column])

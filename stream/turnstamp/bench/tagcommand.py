@@ -1,8 +1,10 @@
 """The whole ``turnstamp tag`` command, file to file, as a user runs it.
 
-Each run is a child process (``python -m turnstamp tag``) timed by the wall clock
-from its start to its exit, start-up included; its peak resident memory and CPU
-time come from the kernel's accounting of that child (``os.wait4``). Inputs are
+Each run is a child process (``turnstamp tag`` through its ``main``) timed by the
+wall clock from its start to its exit, start-up included; its CPU time comes from
+the kernel's accounting of that child (``os.wait4``) and its peak resident memory
+from its own ``VmHWM`` as it exits: ``ru_maxrss`` would count this process's peak,
+which a child inherits when it is started by fork and exec. Inputs are
 one night of ``event_id`` + ``time_ns`` in Arrow IPC (batches of 2^20 rows) and
 Parquet (row groups of 2^20 rows); barycentre tables come from a cache warmed by
 a first small run, as on a user's second night. Start-up is the wall clock of a
@@ -26,6 +28,12 @@ __all__ = ["bench_tag_command"]
 
 _ROWS_PER_BATCH = 1 << 20
 _ENV = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
+_CHILD = ("import sys\n"
+          "from turnstamp.commands.main import main\n"
+          "status = main(sys.argv[1:])\n"
+          "with open('/proc/self/status') as own:\n"
+          "    sys.stderr.write(''.join(l for l in own if l.startswith('VmHWM')))\n"
+          "sys.exit(status)\n")
 _NIGHT_UTC = "2026-12-02T00:00:00"
 
 
@@ -51,7 +59,7 @@ def _run_tag(events: Path, out: Path, site: Path, cache: Path) -> dict:
     """One ``tag`` child: wall seconds, CPU seconds, peak RSS (MB) and its summary."""
     from ..demo import data_file
 
-    command = [sys.executable, "-m", "turnstamp", "tag", str(events), "--model",
+    command = [sys.executable, "-c", _CHILD, "tag", str(events), "--model",
                data_file("lantern.toml"), "--site", str(site), "--out", str(out),
                "--table-cache", str(cache), "--json", "--force"]
     with tempfile.TemporaryFile() as errors:
@@ -62,11 +70,13 @@ def _run_tag(events: Path, out: Path, site: Path, cache: Path) -> dict:
         seconds = time.perf_counter() - started
         child.returncode = os.waitstatus_to_exitcode(status)
         child.stdout.close()
+        errors.seek(0)
+        said = errors.read().decode()
         if child.returncode != 0:
-            errors.seek(0)
-            raise RuntimeError(f"tag failed ({child.returncode}): {errors.read().decode()}")
+            raise RuntimeError(f"tag failed ({child.returncode}): {said}")
+    peak = [line.split()[1] for line in said.splitlines() if line.startswith("VmHWM")]
     return {"seconds": seconds, "cpu_s": usage.ru_utime + usage.ru_stime,
-            "rss_mb": usage.ru_maxrss / 1024, "summary": json.loads(stdout)}
+            "rss_mb": int(peak[-1]) / 1024, "summary": json.loads(stdout)}
 
 
 def bench_tag_command(n: int = 10**7) -> dict:

@@ -4,7 +4,10 @@ Arrow IPC files and streams are read batch by batch from an ordinary file (not a
 memory map, whose touched pages would stay resident up to the file's size);
 Parquet files are decoded ``READ_ROWS`` rows at a time. Only one batch is held at
 a time, whatever the file's size. The file's own batches are kept as they are (a
-batch is a unit of the output's ``sequence`` column and of the duplicate-id check).
+batch is a unit of the output's ``sequence`` column and of the duplicate-id
+check), except that a batch of more than ``READ_ROWS`` rows (a table written in
+one piece) is tagged in slices of that many rows, each with the batch's number,
+so that the work in memory stays bounded.
 """
 
 from __future__ import annotations
@@ -22,7 +25,8 @@ READ_ROWS = 1 << 20  # rows per Parquet read: bounds memory whatever the file si
 
 
 class EventReader:
-    """The record batches of one event file, in order (iterate once)."""
+    """The record batches of one event file, in order, as (batch number, batch) pairs
+    (iterate once)."""
 
     def __init__(self, path: Path):
         self.path = path
@@ -47,9 +51,11 @@ class EventReader:
             return iter(pa.ipc.open_stream(self._source))
         return (reader.get_batch(i) for i in range(reader.num_record_batches))
 
-    def __iter__(self) -> Iterator[pa.RecordBatch]:
+    def __iter__(self) -> Iterator[tuple[int, pa.RecordBatch]]:
         try:
-            yield from self._batches
+            for sequence, record in enumerate(self._batches):
+                for start in range(0, max(record.num_rows, 1), READ_ROWS):
+                    yield sequence, record.slice(start, READ_ROWS)
         except (OSError, pa.ArrowException) as exc:
             raise EventFileError("events", str(self.path),
                                  f"cannot read as Arrow or Parquet: {exc}") from None

@@ -182,7 +182,7 @@ def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment, s
     if on_batch is not None and reader.rows is not None:
         on_batch(0, total=reader.rows)
     try:
-        for sequence, record in enumerate(reader):
+        for sequence, record in reader:
             run.feed(record, sequence, ledger)
             if on_batch is not None:
                 on_batch(record.num_rows)
