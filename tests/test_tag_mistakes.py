@@ -196,3 +196,20 @@ def test_on_the_real_command_line_no_traceback(folder, demo_site_file):
                               capture_output=True, text=True, timeout=120)
         assert done.returncode == 2 and "Traceback" not in done.stderr
         assert ("--site" if not extra else "--time-origin unix") in done.stderr
+
+
+def test_an_output_that_cannot_be_written_is_said_so(capsys, folder, demo_site_file,
+                                                    monkeypatch):
+    # a full disk (simulated): the run stops with the file named, and leaves nothing
+    class FullDisk:
+        def write_table(self, table):
+            raise OSError(28, "No space left on device")
+
+        def close(self):
+            pass
+
+    events = events_file(folder, night_times())
+    monkeypatch.setattr(pa.ipc, "new_file", lambda sink, schema: FullDisk())
+    refused(capsys, events, "--model", MODEL, "--site", demo_site_file, "--out",
+            folder / "t.arrow", naming=["t.arrow", "No space left"])
+    assert not list(folder.glob("*t.arrow*"))

@@ -157,7 +157,10 @@ class TableCache:
         table = CorrectionTable.build(calculator.correction, start, stop, segment_ns,
                                       self.settings.degree, provenance)
         if path is not None:
-            _write_table(path, table)
+            try:
+                _write_table(path, table)
+            except OSError as exc:  # a read-only or full cache costs a rebuild next time
+                log.warning("barycentre table not cached in %s: %s", path.parent, exc)
         return table
 
 

@@ -108,10 +108,13 @@ class OutputFile:
         """Append rows (of the schema's types; its metadata need not be there)."""
         if self._writer is None:
             self._open()
-        if isinstance(table, pa.RecordBatch):
-            self._writer.write_batch(table)
-        else:
-            self._writer.write_table(table)
+        try:
+            if isinstance(table, pa.RecordBatch):
+                self._writer.write_batch(table)
+            else:
+                self._writer.write_table(table)
+        except OSError as exc:  # a full disk, a vanished folder: said, not a traceback
+            raise EventFileError("--out", str(self.path), f"cannot write: {exc}") from None
         self.rows += table.num_rows
 
     def _close(self) -> None:
@@ -127,10 +130,13 @@ class OutputFile:
         if self._writer is None and self.always:
             self._open()
         published = self._writer is not None
-        self._close()
-        if not published:
-            return None
-        os.replace(self.partial, self.path)
+        try:
+            self._close()
+            if not published:
+                return None
+            os.replace(self.partial, self.path)
+        except OSError as exc:
+            raise EventFileError("--out", str(self.path), f"cannot write: {exc}") from None
         return self.path
 
     def abandon(self) -> None:
