@@ -8,10 +8,16 @@ batch is a unit of the output's ``sequence`` column and of the duplicate-id
 check), except that a batch of more than ``READ_ROWS`` rows (a table written in
 one piece) is tagged in slices of that many rows, each with the batch's number,
 so that the work in memory stays bounded.
+
+The next batch is read on a background thread while the current one is tagged
+(pyarrow releases the interpreter lock while it reads and decodes): one batch at
+most waits.
 """
 
 from __future__ import annotations
 
+import queue
+import threading
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -52,6 +58,9 @@ class EventReader:
         return (reader.get_batch(i) for i in range(reader.num_record_batches))
 
     def __iter__(self) -> Iterator[tuple[int, pa.RecordBatch]]:
+        return _prefetched(self._slices())
+
+    def _slices(self) -> Iterator[tuple[int, pa.RecordBatch]]:
         try:
             for sequence, record in enumerate(self._batches):
                 for start in range(0, max(record.num_rows, 1), READ_ROWS):
@@ -66,6 +75,53 @@ class EventReader:
         if self._source is not None:
             self._source.close()
             self._source = None
+
+
+_END = object()
+
+
+def _prefetched(items, waiting: int = 1):
+    """The items of the generator ``items``, each read ahead on a background thread;
+    its errors are raised here, in order."""
+    ready: queue.Queue = queue.Queue(maxsize=waiting)
+    stop = threading.Event()
+
+    def produce() -> None:
+        try:
+            for item in items:
+                while not stop.is_set():
+                    try:
+                        ready.put((item, None), timeout=0.1)
+                        break
+                    except queue.Full:
+                        continue
+                if stop.is_set():
+                    break
+            outcome = (_END, None)
+        except BaseException as exc:  # handed to the reader, in order
+            outcome = (_END, exc)
+        finally:
+            items.close()
+        while not stop.is_set():
+            try:
+                ready.put(outcome, timeout=0.1)
+                return
+            except queue.Full:
+                continue
+
+    thread = threading.Thread(target=produce, name="tag-reader", daemon=True)
+    thread.start()
+    try:
+        while True:
+            item, error = ready.get()
+            if item is _END:
+                if error is not None:
+                    raise error
+                return
+            yield item
+    finally:
+        stop.set()
+        thread.join()
 
 
 def open_events(path: Path) -> EventReader:
