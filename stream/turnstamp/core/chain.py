@@ -16,7 +16,8 @@ the very same code:
    ``FeedResult`` holding the archive columns;
 3. ``add_recipe_moments``: each recipe's moments take the tagged rows with its bit
    set, except those tagged outside their model's validity (into accumulators of
-   the caller's: the running ones, or fresh partials that merge by addition).
+   the caller's: the running ones, or fresh partials that merge by addition);
+   recipes taking every row share one pass of the moments' kernel.
 
 Nothing here keeps state, reads a clock or touches a file.
 """
@@ -34,7 +35,7 @@ from .batch import EventBatch, RejectCode, check_values, describe_rejects
 from .flags import Quality
 from .targets import Recipe, TargetSetup, cos_angular_distance
 from .timebase import ClockCorrection, LeapSecondTable, site_tt
-from .timebinned import TimeBinnedMoments
+from .timebinned import TimeBinnedMoments, update_together
 
 __all__ = ["ChainSettings", "TimedBatch", "TaggedRows", "time_base", "tag_targets",
            "used_columns", "recipe_rows", "add_recipe_moments"]
@@ -214,9 +215,16 @@ def add_recipe_moments(moments: Sequence[TimeBinnedMoments], recipes: Sequence[R
                        tt_ns, phase, weight, recipe_flags,
                        quality) -> list[np.ndarray | slice | None]:
     """Add tagged events (archive columns) to each recipe's moments (weighted when the
-    recipe uses weights); returns the rows each recipe took (``recipe_rows``)."""
+    recipe uses weights); returns the rows each recipe took (``recipe_rows``).
+
+    Recipes that take every row share one pass of the moments' kernel
+    (``timebinned.update_together``)."""
     chosen = recipe_rows(recipes, recipe_flags, quality)
+    every = [i for i, rows in enumerate(chosen) if isinstance(rows, slice)]
+    if every:
+        update_together([moments[i] for i in every], tt_ns, phase,
+                        [weight if recipes[i].use_weights else None for i in every])
     for rows, recipe, binned in zip(chosen, recipes, moments, strict=True):
-        if rows is not None:
+        if rows is not None and not isinstance(rows, slice):
             binned.update(tt_ns[rows], phase[rows], weight[rows] if recipe.use_weights else None)
     return chosen

@@ -21,9 +21,12 @@ stays in cache; scratch arrays are reused per thread.
   ``np.sin``.
 * **Harmonics** follow from the recurrence ``z_k = z_(k-1)·u`` with ``z_1 = w·u``
   (rounding grows about linearly in k, ~k·1e-16).
-* **Segments**: a chunk inside one segment is summed along its rows; a chunk that
-  spans several is cut with one ``np.add.reduceat`` and its histogram binned with
-  one ``np.bincount`` over (segment, bin) pairs.
+* **Segments**: a chunk is summed along its rows per segment (one
+  ``np.add.reduceat`` when it spans many) and its histogram binned with one
+  ``np.bincount`` over (segment, bin) pairs.
+* **Several weightings** of the same events (recipes that take the same rows)
+  share the unit vectors and their powers; each weighting is then one
+  matrix-vector product (``shared_segment_sums``).
 
 The module does no I/O, holds no clock and imports neither zmq nor pyarrow.
 """
@@ -36,7 +39,8 @@ from typing import NamedTuple
 
 import numpy as np
 
-__all__ = ["CHUNK", "TABLE_SIZE", "SegmentSums", "segment_sums", "reduced_phases"]
+__all__ = ["CHUNK", "TABLE_SIZE", "SegmentSums", "segment_sums", "shared_segment_sums",
+           "reduced_phases"]
 
 CHUNK = 8192
 """Events per pass: the (harmonics x CHUNK) complex block stays in cache."""
@@ -176,14 +180,18 @@ def _chunk_segments(starts: np.ndarray, lo: int, hi: int) -> tuple[int, np.ndarr
     return first, local
 
 
-def _add_segment_sums(z: np.ndarray, local: np.ndarray, out: np.ndarray) -> None:
-    """Add the row sums of each column range [local[i], local[i+1]) of ``z`` to out[i]."""
-    if local.size > _FEW_SEGMENTS:
+def _add_sums(z: np.ndarray, w: np.ndarray | None, local: np.ndarray,
+              out: np.ndarray) -> None:
+    """Add to out[i] the sums over each column range [local[i], local[i+1]) of ``z``:
+    plain row sums, or weighted by ``w`` (a matrix-vector product) when given."""
+    if w is None and local.size > _FEW_SEGMENTS:
         out += np.add.reduceat(z, local, axis=1).T
         return
+    weights = None if w is None else w.astype(np.complex128)
     bounds = [*local.tolist(), z.shape[1]]
     for i in range(local.size):
-        out[i] += z[:, bounds[i] : bounds[i + 1]].sum(axis=1)
+        part = z[:, bounds[i] : bounds[i + 1]]
+        out[i] += part.sum(axis=1) if weights is None else part @ weights[bounds[i]:bounds[i + 1]]
 
 
 def segment_sums(phases, weights, starts, harmonics: int, bins: int) -> SegmentSums:
@@ -207,31 +215,50 @@ def segment_sums(phases, weights, starts, harmonics: int, bins: int) -> SegmentS
         Nothing is committed anywhere: a ``ValueError`` (non-finite phase or weight,
         negative weight) leaves every caller's state unchanged.
     """
+    return shared_segment_sums(phases, [weights], starts, harmonics, bins)[0]
+
+
+def shared_segment_sums(phases, weight_sets, starts, harmonics: int,
+                        bins: int) -> list[SegmentSums]:
+    """``segment_sums`` of the same events under several sets of weights at once.
+
+    The unit vectors, their powers and the histogram bins are computed once: with one
+    set its weights enter the recurrence (z_1 = w·u); with several, the powers are
+    unweighted and each weighted set is summed by a matrix-vector product.
+
+    Parameters
+    ----------
+    phases, starts, harmonics, bins
+        As for ``segment_sums``.
+    weight_sets : sequence of (ndarray of float64 or None)
+        One weight array (or None for unit weights) per result.
+    """
     starts = np.asarray(starts, dtype=np.intp)
     n, count = phases.size, starts.size
+    single = len(weight_sets) == 1
     s = _scratch(harmonics)
-    sums = np.zeros((count, harmonics), dtype=np.complex128)
-    hist_w = np.zeros(count * bins)
-    hist_w2 = np.zeros(count * bins) if weights is not None else hist_w
+    sums = [np.zeros((count, harmonics), dtype=np.complex128) for _ in weight_sets]
+    hist_w = [np.zeros(count * bins) for _ in weight_sets]
+    hist_w2 = [np.zeros(count * bins) if w is not None else h
+               for w, h in zip(weight_sets, hist_w, strict=True)]
     for lo in range(0, n, CHUNK):
         hi = min(lo + CHUNK, n)
         phi = reduced_phases(phases[lo:hi])
-        w = None if weights is None else weights[lo:hi]
-        if w is not None:
-            _check_weights(w)
-        z = _harmonic_block(phi, w, s)
+        chunk = [None if w is None else w[lo:hi] for w in weight_sets]
+        for w in chunk:
+            if w is not None:
+                _check_weights(w)
+        z = _harmonic_block(phi, chunk[0] if single else None, s)
         first, local = _chunk_segments(starts, lo, hi)
         index = _bin_index(phi, bins, s)
-        if local.size == 1:
-            sums[first] += z.sum(axis=1)
-            _histograms(index, w, bins, hist_w[first * bins : (first + 1) * bins],
-                        hist_w2[first * bins : (first + 1) * bins])
-            continue
-        _add_segment_sums(z, local, sums[first : first + local.size])
-        segment = np.repeat(np.arange(local.size), np.diff(local, append=hi - lo))
-        index = index + segment * bins
+        if local.size > 1:
+            index = index + np.repeat(np.arange(local.size) * bins,
+                                      np.diff(local, append=hi - lo))
         span = slice(first * bins, (first + local.size) * bins)
-        _histograms(index, w, local.size * bins, hist_w[span], hist_w2[span])
+        for k, w in enumerate(chunk):
+            _add_sums(z, None if single else w, local, sums[k][first : first + local.size])
+            _histograms(index, w, local.size * bins, hist_w[k][span], hist_w2[k][span])
     counts = np.diff(starts, append=n).astype(np.int64)
     shape = (count, bins)
-    return SegmentSums(counts, sums, hist_w.reshape(shape), hist_w2.reshape(shape))
+    return [SegmentSums(counts, sums[k], hist_w[k].reshape(shape), hist_w2[k].reshape(shape))
+            for k in range(len(weight_sets))]

@@ -12,18 +12,18 @@ The module does no I/O, holds no clock and imports neither zmq nor pyarrow.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
 
 from turnstamp.errors import InputError
 
-from .harmonicsums import segment_sums
+from .harmonicsums import shared_segment_sums
 from .moments import DEFAULT_BINS, MAX_HARMONICS, PhaseMoments, positive_int
 from .momentstate import STATE_VERSION, check_keys, state_int
 
-__all__ = ["TimeBinnedMoments"]
+__all__ = ["TimeBinnedMoments", "update_together"]
 
 
 class TimeBinnedMoments:
@@ -77,24 +77,20 @@ class TimeBinnedMoments:
         interval by one call of the moments' kernel. Atomic: on a bad phase or
         weight it raises ``ValueError`` and changes nothing. Returns ``self``.
         """
-        times, phases, weights = _timed_event_arrays(times_ns, phases, weights)
-        if times.size == 0:
-            return self
-        intervals, starts, phases, weights = _interval_segments(times, self.interval_ns,
-                                                                phases, weights)
-        found = segment_sums(phases, weights, starts, self.harmonics, self.bins)
-        weighted = weights is not None
-        for row, interval in enumerate(intervals.tolist()):
+        update_together([self], times_ns, phases, [weights])
+        return self
+
+    def _add_found(self, intervals: list[int], found, weighted: bool, newest: int) -> None:
+        """Add the kernel's per-interval sums (row i: interval ``intervals[i]``)."""
+        for row, interval in enumerate(intervals):
             held = self._held(interval)
             if held is None:
                 self._intervals[interval] = PhaseMoments.from_segment(found, row, weighted)
             else:
                 held.add_segment(found, row, weighted)
-        newest = int(times.max())
         if self.latest_ns is None or newest > self.latest_ns:
             self.latest_ns = newest
         self._prune()
-        return self
 
     def _prune(self) -> None:
         if self.retain_ns is None or self.latest_ns is None:
@@ -316,9 +312,9 @@ def _matching_moments(state, field, harmonics, bins) -> PhaseMoments:
     return moments
 
 
-def _timed_event_arrays(times_ns, phases, weights):
-    """Times (int64 ns), phases and weights as vectors of one length (their values are
-    checked by the kernel before any interval is touched)."""
+def _timed_event_arrays(times_ns, phases, weight_sets):
+    """Times (int64 ns), phases and each weight set as vectors of one length (their
+    values are checked by the kernel before any interval is touched)."""
     times = np.asarray(times_ns).reshape(-1)
     if times.dtype.kind not in "iu":
         raise TypeError(f"times_ns must be integer nanoseconds, got dtype {times.dtype}")
@@ -326,16 +322,53 @@ def _timed_event_arrays(times_ns, phases, weights):
     phases = np.ascontiguousarray(phases, dtype=np.float64).reshape(-1)
     if phases.shape != times.shape:
         raise ValueError(f"phases has {phases.size} values but times_ns has {times.size}")
-    if weights is not None:
-        weights = np.ascontiguousarray(weights, dtype=np.float64).reshape(-1)
-        if weights.shape != times.shape:
-            raise ValueError(f"weights has {weights.size} values but times_ns has {times.size}")
+    weights = []
+    for w in weight_sets:
+        if w is not None:
+            w = np.ascontiguousarray(w, dtype=np.float64).reshape(-1)
+            if w.shape != times.shape:
+                raise ValueError(f"weights has {w.size} values but times_ns has {times.size}")
+        weights.append(w)
     return times, phases, weights
 
 
-def _interval_segments(times, interval_ns, phases, weights):
-    """Intervals present (ascending), the first event of each, and the phases and
-    weights in that order.
+def update_together(binned: Sequence[TimeBinnedMoments], times_ns, phases,
+                    weight_sets: Sequence) -> None:
+    """Add the same events to several accumulators of one shape, each with its own
+    weights (None: unit weights), e.g. the recipes of a target that take the same
+    rows: the grouping by interval and the harmonic computation are shared
+    (``harmonicsums.shared_segment_sums``). Atomic, like ``update``.
+
+    Parameters
+    ----------
+    binned : sequence of TimeBinnedMoments
+        Same interval, harmonics and bins.
+    times_ns, phases
+        As for ``TimeBinnedMoments.update``.
+    weight_sets : sequence of (array_like or None)
+        One per accumulator.
+    """
+    shape = {(b.interval_ns, b.harmonics, b.bins) for b in binned}
+    if len(shape) != 1 or len(weight_sets) != len(binned):
+        raise ValueError(f"accumulators of one shape and one weight set each, got {shape} "
+                         f"and {len(weight_sets)} weight sets for {len(binned)}")
+    times, phases, weights = _timed_event_arrays(times_ns, phases, weight_sets)
+    if times.size == 0:
+        return
+    first = binned[0]
+    intervals, starts, order = _interval_segments(times, first.interval_ns)
+    if order is not None:
+        phases = phases[order]
+        weights = [None if w is None else w[order] for w in weights]
+    found = shared_segment_sums(phases, weights, starts, first.harmonics, first.bins)
+    newest = int(times.max())
+    for accumulator, sums, w in zip(binned, found, weights, strict=True):
+        accumulator._add_found(intervals.tolist(), sums, w is not None, newest)
+
+
+def _interval_segments(times, interval_ns):
+    """Intervals present (ascending), the first event of each, and the order that
+    sorts the events by interval (None when they are in order already).
 
     A time-sorted batch (the usual case) is cut at the interval boundaries found by
     binary search (no pass computing every event's interval); any other is first
@@ -344,22 +377,20 @@ def _interval_segments(times, interval_ns, phases, weights):
     if times.size > 1 and not (times[1:] >= times[:-1]).all():
         index = times // interval_ns
         order = np.argsort(index, kind="stable")
-        index, phases = index[order], phases[order]
-        if weights is not None:
-            weights = weights[order]
+        index = index[order]
         starts = np.concatenate([_FIRST, np.flatnonzero(index[1:] != index[:-1]) + 1])
-        return index[starts], starts, phases, weights
+        return index[starts], starts, order
     first, last = int(times[0]) // interval_ns, int(times[-1]) // interval_ns
     if first == last:
-        return np.array([first]), _FIRST, phases, weights
+        return np.array([first]), _FIRST, None
     if last - first > times.size:  # sparse over a long span: cut where the index changes
         index = times // interval_ns
         starts = np.concatenate([_FIRST, np.flatnonzero(index[1:] != index[:-1]) + 1])
-        return index[starts], starts, phases, weights
+        return index[starts], starts, None
     intervals = np.arange(first, last + 1)
     starts = np.concatenate([_FIRST, np.searchsorted(times, intervals[1:] * interval_ns)])
     filled = np.diff(starts, append=times.size) > 0
-    return intervals[filled], starts[filled], phases, weights
+    return intervals[filled], starts[filled], None
 
 
 _FIRST = np.zeros(1, dtype=np.intp)
