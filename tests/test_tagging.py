@@ -188,7 +188,8 @@ def test_bad_rows_go_to_the_rejects_file(tmp_path, events, demo_site_file, capsy
     assert 0 in archive["site_tt_ns"].to_numpy() - 64_184_000_000
     # the summary breaks the rejections down by reason
     printed = capsys.readouterr().out
-    assert "(bad_time): 1" in printed and "(duplicate_event_id): 1" in printed
+    assert "rejected (bad_time), time_ns outside the plausible range: 1" in printed
+    assert "rejected (duplicate_event_id), event_id repeated within the message: 1" in printed
 
 
 def test_tag_refuses_without_a_site(tmp_path, events, capsys):

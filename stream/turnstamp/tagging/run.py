@@ -98,6 +98,7 @@ class _Run:
         self.job = TagJob(setup, chain, scale, convention, plausible, source, label, tables)
         self.totals = {r.name: self.job.statistics.moments() for r in setup.recipes}
         self.quality: Counter[str] = Counter()
+        self.rejected: Counter[tuple[str, str]] = Counter()
         self.model_ids = setup.tagger.model_ids
         self.metadata = {**env.provenance(), "target": setup.name,
                          "models": ",".join(self.model_ids), "input": label,
@@ -119,6 +120,8 @@ class _Run:
         if result.rejected:
             rejects.append(rejects_table(tagged.batch, result, received_utc_ns=0,
                                          message_bytes=0))
+            self.rejected.update(zip(result.rejected_reason, result.rejected_detail,
+                                     strict=True))
         ledger.commit(MessageRecord.accepted(0, self.job.source, sequence, result),
                       archive, rejects)
 
@@ -128,7 +131,8 @@ class _Run:
         return TagSummary(counters.events_received, counters.events_tagged,
                           counters.events_filtered, counters.events_rejected, output, rejects,
                           time.perf_counter() - started, self.job.setup.name,
-                          dict(counters.rejected_by_reason), dict(self.quality), self.totals)
+                          dict(counters.rejected_by_reason), dict(self.rejected),
+                          dict(self.quality), self.totals)
 
 
 def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment, scale: Scale,

@@ -1,10 +1,10 @@
 """What a tagging run did, in the words its summary prints.
 
 Every event read is accounted for (tagged, filtered or rejected, rejections by
-reason), events tagged with a quality problem are counted per problem (those
-tagged outside their model's validity are left out of the statistics), and each
-recipe's H-test is given with its significance, or "no events" / "no excess"
-where a number would mislead.
+reason and what exactly was wrong), events tagged with a quality problem are
+counted per problem (those tagged outside their model's validity are left out of
+the statistics), and each recipe's H-test is given with its significance, or "no
+events" / "no excess" where a number would mislead.
 """
 
 from __future__ import annotations
@@ -31,12 +31,6 @@ QUALITY_WORDS = {  # the most consequential first
 }
 """What each archive quality flag means, as the summary says it."""
 
-REASON_WORDS = {
-    "bad_time": "time missing or implausible",
-    "bad_value": "a value a recipe uses is missing or out of range",
-    "duplicate_event_id": "event_id repeated within a batch",
-    "outside_table_coverage": "outside the barycentre tables",
-}
 
 
 @dataclass
@@ -52,6 +46,7 @@ class TagSummary:
     seconds: float
     target: str
     rejected_by_reason: dict[str, int] = field(default_factory=dict)
+    rejected_details: dict[tuple[str, str], int] = field(default_factory=dict)
     quality: dict[str, int] = field(default_factory=dict)
     statistics: dict[str, TimeBinnedMoments] = field(default_factory=dict)
 
@@ -60,8 +55,8 @@ class TagSummary:
         rate = self.events / self.seconds if self.seconds > 0 else 0.0
         out = [f"{self.events:,} events in {self.seconds:.1f} s ({rate:,.0f}/s): "
                f"{self.tagged:,} tagged, {self.filtered:,} filtered, {self.rejected:,} rejected"]
-        for reason, count in sorted(self.rejected_by_reason.items()):
-            out.append(f"  rejected, {REASON_WORDS.get(reason, reason)} ({reason}): {count:,}")
+        for (reason, detail), count in sorted(self.rejected_details.items()):
+            out.append(f"  rejected ({reason}), {detail}: {count:,}")
         for flag in sorted(self.quality, key=lambda f: (list(QUALITY_WORDS) + [f]).index(f)):
             out.append(f"  {self.quality[flag]:,} tagged {QUALITY_WORDS.get(flag, flag)}")
         if self.tagged == 0:
@@ -80,6 +75,9 @@ class TagSummary:
         return {
             "events": self.events, "tagged": self.tagged, "filtered": self.filtered,
             "rejected": self.rejected, "rejected_by_reason": self.rejected_by_reason,
+            "rejected_by_detail": [{"reason": reason, "detail": detail, "events": count}
+                                   for (reason, detail), count
+                                   in sorted(self.rejected_details.items())],
             "tagged_with_quality_flag": self.quality, "target": self.target,
             "archive": None if self.output is None else str(self.output),
             "rejects": None if self.rejects is None else str(self.rejects),
