@@ -103,5 +103,6 @@ def summary_lines(results: dict) -> list[str]:
     lines.append("targets:")
     for key, info in results["targets"].items():
         mark = "met" if info["met"] else "NOT met"
-        lines.append(f"  {key:45s} {results[key]:,.1f} vs {info['target']:,.0f}: {mark}")
+        lines.append(f"  {key:45s} {_shown(float(results[key]))} vs "
+                     f"{_shown(float(info['target']))}: {mark}")
     return lines
