@@ -355,7 +355,7 @@ def test_per_batch_partials_merge_by_addition_into_the_run_totals(tmp_path, even
 
 def test_a_file_written_in_one_piece_is_tagged_in_bounded_slices(tmp_path, events,
                                                                  demo_site_file, monkeypatch):
-    # a table written whole is one record batch; it is tagged READ_ROWS rows at a time
+    # a table written whole is one record batch; it is tagged SLICE_ROWS rows at a time
     # (here 4000), each slice numbered as the batch, with the same rows as a file in
     # small batches
     import turnstamp.tagging.inputs as inputs
@@ -363,7 +363,7 @@ def test_a_file_written_in_one_piece_is_tagged_in_bounded_slices(tmp_path, event
     table = write_events(tmp_path / "small-batches.arrow", events)
     write_table(tmp_path / "one-piece.arrow", table, chunk=None)
     assert pa.ipc.open_file(str(tmp_path / "one-piece.arrow")).num_record_batches == 1
-    monkeypatch.setattr(inputs, "READ_ROWS", 4000)
+    monkeypatch.setattr(inputs, "SLICE_ROWS", 4000)
     seen = []
     original = inputs.EventReader.__iter__
 

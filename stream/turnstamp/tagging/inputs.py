@@ -5,9 +5,9 @@ memory map, whose touched pages would stay resident up to the file's size);
 Parquet files are decoded ``READ_ROWS`` rows at a time. Only one batch is held at
 a time, whatever the file's size. The file's own batches are kept as they are (a
 batch is a unit of the output's ``sequence`` column and of the duplicate-id
-check), except that a batch of more than ``READ_ROWS`` rows (a table written in
-one piece) is tagged in slices of that many rows, each with the batch's number,
-so that the work in memory stays bounded.
+check), except that a batch is tagged in slices of at most ``SLICE_ROWS`` rows,
+each with the batch's number, so that the work in memory stays bounded whatever
+the writer of the file chose (a table written in one piece is one batch).
 
 The next batch is read on a background thread while the current one is tagged
 (pyarrow releases the interpreter lock while it reads and decodes): one batch at
@@ -25,9 +25,10 @@ import pyarrow as pa
 
 from ..errors import EventFileError
 
-__all__ = ["READ_ROWS", "EventReader", "open_events"]
+__all__ = ["READ_ROWS", "SLICE_ROWS", "EventReader", "open_events"]
 
-READ_ROWS = 1 << 20  # rows per Parquet read: bounds memory whatever the file size
+READ_ROWS = 1 << 20  # rows per Parquet read (numbers the batches, as it always has)
+SLICE_ROWS = 1 << 19  # rows tagged at once: ~40 MB of archive rows in flight per slice
 
 
 class EventReader:
@@ -63,8 +64,8 @@ class EventReader:
     def _slices(self) -> Iterator[tuple[int, pa.RecordBatch]]:
         try:
             for sequence, record in enumerate(self._batches):
-                for start in range(0, max(record.num_rows, 1), READ_ROWS):
-                    yield sequence, record.slice(start, READ_ROWS)
+                for start in range(0, max(record.num_rows, 1), SLICE_ROWS):
+                    yield sequence, record.slice(start, SLICE_ROWS)
         except (OSError, pa.ArrowException) as exc:
             raise EventFileError("events", str(self.path),
                                  f"cannot read as Arrow or Parquet: {exc}") from None

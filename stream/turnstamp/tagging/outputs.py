@@ -8,10 +8,11 @@ existing output is replaced only by a complete one (and only with ``force``).
 The archive is written in the Arrow IPC file format, or Parquet when its name
 ends in ``.parquet``; the rejects always in Arrow IPC.
 
-Writing is handed to one background thread (``BackgroundWrites``), in order, one
-batch at most waiting: pyarrow releases the interpreter lock while it encodes and
-writes, so the file system's copying overlaps the tagging of the next batch, and
-memory holds at most three batches (one tagged, one waiting, one being written).
+Writing is handed to one background thread (``BackgroundWrites``), in order:
+pyarrow releases the interpreter lock while it encodes and writes, so the file
+system's copying overlaps the tagging of the next batch. An archive batch is handed
+over only when the thread is free to take it, so memory holds at most two batches
+of archive rows (one being written, one being tagged).
 """
 
 from __future__ import annotations
@@ -151,14 +152,18 @@ class OutputFile:
 class BackgroundWrites:
     """Writes to ``OutputFile`` objects on one background thread, in order.
 
-    ``stream(output)`` gives a writer (``write(table)``) for the ledger; a failure
-    of the thread is raised in the caller at its next write or at ``drain``.
+    ``stream(output, handed=...)`` gives a writer (``write(table)``) for the ledger.
+    A write through a ``handed`` stream returns once the thread has taken the table
+    (it never waits in a queue: a batch's archive rows are held by one side only,
+    so at most two batches' worth are in memory); other writes queue behind it. A
+    failure of the thread is raised in the caller at its next write or at ``drain``.
     """
 
     _STOP = None
 
-    def __init__(self, waiting: int = 1):
-        self._queue: queue.Queue = queue.Queue(maxsize=waiting)
+    def __init__(self):
+        self._queue: queue.Queue = queue.Queue()
+        self._taken = threading.Semaphore(0)
         self._error: BaseException | None = None
         self._thread = threading.Thread(target=self._run, name="tag-writer", daemon=True)
         self._thread.start()
@@ -168,24 +173,29 @@ class BackgroundWrites:
             item = self._queue.get()
             if item is self._STOP:
                 return
-            output, table = item
+            output, table, handed = item
+            if handed:
+                self._taken.release()
             if self._error is None:
                 try:
                     output.write(table)
                 except BaseException as exc:  # handed to the caller, not lost in the thread
                     self._error = exc
+            del item, table  # the rows go as soon as they are written
 
     def _raise(self) -> None:
         if self._error is not None:
             error, self._error = self._error, None
             raise error
 
-    def write(self, output: OutputFile, table) -> None:
+    def write(self, output: OutputFile, table, handed: bool = False) -> None:
         self._raise()
-        self._queue.put((output, table))
+        self._queue.put((output, table, handed))
+        if handed:
+            self._taken.acquire()
 
-    def stream(self, output: OutputFile) -> _Stream:
-        return _Stream(self, output)
+    def stream(self, output: OutputFile, handed: bool = False) -> _Stream:
+        return _Stream(self, output, handed)
 
     def drain(self) -> None:
         """Wait until everything queued is written; raise a failure of the thread."""
@@ -205,9 +215,10 @@ class BackgroundWrites:
 class _Stream:
     """The ``write(table)`` of one output, through the background thread."""
 
-    def __init__(self, writes: BackgroundWrites, output: OutputFile):
+    def __init__(self, writes: BackgroundWrites, output: OutputFile, handed: bool):
         self._writes = writes
         self._output = output
+        self._handed = handed
 
     def write(self, table) -> None:
-        self._writes.write(self._output, table)
+        self._writes.write(self._output, table, self._handed)

@@ -182,7 +182,7 @@ def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment, s
     refused = OutputFile(rejects_path(output), _with_metadata(schemas.REJECTS, run.metadata))
     created = make_folder(output.parent)
     writes = BackgroundWrites()
-    ledger = Ledger(writes.stream(archive), writes.stream(refused))
+    ledger = Ledger(writes.stream(archive, handed=True), writes.stream(refused))
     if on_batch is not None and reader.rows is not None:
         on_batch(0, total=reader.rows)
     try:
