@@ -330,17 +330,17 @@ def test_per_batch_partials_merge_by_addition_into_the_run_totals(tmp_path, even
     from turnstamp.core.timebase import Scale
     from turnstamp.files.inputs import load_spin_model
     from turnstamp.tagging.batchtag import tag_record
-    from turnstamp.tagging.run import _Run, offline_target
+    from turnstamp.tagging.run import offline_target, tag_job
     from turnstamp.tagging.times import TimeConvention
 
     table = write_events(tmp_path / "events.arrow", events)
     records = table.to_batches(max_chunksize=3000)
-    run = _Run(offline_target([load_spin_model(MODEL)]), demo_env, Scale.UTC, None,
-               "events", "events", TimeConvention())
-    partials = [tag_record(record, run.job, i).moments[0] for i, record in enumerate(records)]
-    totals = [run.job.statistics.moments()]
+    job = tag_job(offline_target([load_spin_model(MODEL)]), demo_env, Scale.UTC, None,
+                  "events", "events", TimeConvention())
+    partials = [tag_record(record, job, i).moments[0] for i, record in enumerate(records)]
+    totals = [job.statistics.moments()]
     for i, record in enumerate(records):
-        tag_record(record, run.job, i, into=totals)
+        tag_record(record, job, i, into=totals)
     half = len(partials) // 2
     merged = reduce(lambda a, b: a + b, partials[half:]) + reduce(lambda a, b: a + b,
                                                                   partials[:half])

@@ -44,7 +44,7 @@ from .summary import TagSummary
 from .tables import DayTables
 from .times import PlausibleRange, TimeConvention
 
-__all__ = ["tag_file", "tag_table", "offline_target", "plausible_range"]
+__all__ = ["tag_file", "tag_table", "tag_job", "offline_target", "plausible_range"]
 
 _J2000_JD = 2_451_545.0
 _J2000_MJD = 51_544.5
@@ -85,17 +85,27 @@ def _with_metadata(schema: pa.Schema, metadata: dict) -> pa.Schema:
                                  **{k: str(v) for k, v in metadata.items()}})
 
 
+def tag_job(setup: TargetSetup, env: Environment, scale: Scale, table_cache: Path | None,
+            label: str, source: str, convention: TimeConvention) -> TagJob:
+    """What every batch of a run shares (``batchtag.TagJob``): the target with tables
+    added as days appear, the site's time base, the plausible range of the input's
+    times and the columns the recipes check. ``label`` names the input in messages,
+    ``source`` fills the archive's ``source`` column."""
+    tables = DayTables(setup, env, table_cache)
+    plausible = plausible_range(env)
+    chain = ChainSettings(env.leaps, env.clock_chain, plausible.earliest_ns,
+                          plausible.latest_ns, setup.columns())
+    return TagJob(setup, chain, scale, convention, plausible, source, label, tables)
+
+
 class _Run:
     """One target's tagging of one input: the job, the totals, the accounting."""
 
     def __init__(self, setup: TargetSetup, env: Environment, scale: Scale,
                  table_cache: Path | None, label: str, source: str,
                  convention: TimeConvention):
-        tables = DayTables(setup, env, table_cache)
-        plausible = plausible_range(env)
-        chain = ChainSettings(env.leaps, env.clock_chain, plausible.earliest_ns,
-                              plausible.latest_ns, setup.columns())
-        self.job = TagJob(setup, chain, scale, convention, plausible, source, label, tables)
+        self.job = tag_job(setup, env, scale, table_cache, label, source, convention)
+        tables = self.job.tables
         self.totals = {r.name: self.job.statistics.moments() for r in setup.recipes}
         self.quality: Counter[str] = Counter()
         self.rejected: Counter[tuple[str, str]] = Counter()
