@@ -25,8 +25,7 @@ stays in cache; scratch arrays are reused per thread.
   ``np.add.reduceat`` when it spans many) and its histogram binned with one
   ``np.bincount`` over (segment, bin) pairs.
 * **Several weightings** of the same events (recipes that take the same rows)
-  share the unit vectors and their powers; each weighting is then one
-  matrix-vector product (``shared_segment_sums``).
+  share the unit vectors and the histogram bins (``shared_segment_sums``).
 
 The module does no I/O, holds no clock and imports neither zmq nor pyarrow.
 """
@@ -133,10 +132,11 @@ def _unit_vectors(phi: np.ndarray, s: _Scratch) -> np.ndarray:
     return unit
 
 
-def _harmonic_block(phi: np.ndarray, w: np.ndarray | None, s: _Scratch) -> np.ndarray:
-    """Row k-1 holds w·exp(2πikφ) for k = 1..harmonics (a view of the scratch block)."""
-    z = s.block[:, : phi.size]
-    unit = _unit_vectors(phi, s)
+def _harmonic_block(unit: np.ndarray, w: np.ndarray | None, s: _Scratch) -> np.ndarray:
+    """Row k-1 holds w·exp(2πikφ) for k = 1..harmonics, from the unit vectors
+    exp(2πiφ) (a view of the scratch block). No BLAS anywhere: threaded BLAS on
+    blocks this small is slower, and on a busy machine far slower."""
+    z = s.block[:, : unit.size]
     if w is None:
         z[0] = unit
     else:
@@ -180,18 +180,14 @@ def _chunk_segments(starts: np.ndarray, lo: int, hi: int) -> tuple[int, np.ndarr
     return first, local
 
 
-def _add_sums(z: np.ndarray, w: np.ndarray | None, local: np.ndarray,
-              out: np.ndarray) -> None:
-    """Add to out[i] the sums over each column range [local[i], local[i+1]) of ``z``:
-    plain row sums, or weighted by ``w`` (a matrix-vector product) when given."""
-    if w is None and local.size > _FEW_SEGMENTS:
+def _add_sums(z: np.ndarray, local: np.ndarray, out: np.ndarray) -> None:
+    """Add to out[i] the row sums of ``z`` over each column range [local[i], local[i+1])."""
+    if local.size > _FEW_SEGMENTS:
         out += np.add.reduceat(z, local, axis=1).T
         return
-    weights = None if w is None else w.astype(np.complex128)
     bounds = [*local.tolist(), z.shape[1]]
     for i in range(local.size):
-        part = z[:, bounds[i] : bounds[i + 1]]
-        out[i] += part.sum(axis=1) if weights is None else part @ weights[bounds[i]:bounds[i + 1]]
+        out[i] += z[:, bounds[i] : bounds[i + 1]].sum(axis=1)
 
 
 def segment_sums(phases, weights, starts, harmonics: int, bins: int) -> SegmentSums:
@@ -222,9 +218,8 @@ def shared_segment_sums(phases, weight_sets, starts, harmonics: int,
                         bins: int) -> list[SegmentSums]:
     """``segment_sums`` of the same events under several sets of weights at once.
 
-    The unit vectors, their powers and the histogram bins are computed once: with one
-    set its weights enter the recurrence (z_1 = w·u); with several, the powers are
-    unweighted and each weighted set is summed by a matrix-vector product.
+    The unit vectors and the histogram bins are computed once; each set's weights
+    then enter its own recurrence (z_1 = w·u).
 
     Parameters
     ----------
@@ -235,7 +230,6 @@ def shared_segment_sums(phases, weight_sets, starts, harmonics: int,
     """
     starts = np.asarray(starts, dtype=np.intp)
     n, count = phases.size, starts.size
-    single = len(weight_sets) == 1
     s = _scratch(harmonics)
     sums = [np.zeros((count, harmonics), dtype=np.complex128) for _ in weight_sets]
     hist_w = [np.zeros(count * bins) for _ in weight_sets]
@@ -248,7 +242,7 @@ def shared_segment_sums(phases, weight_sets, starts, harmonics: int,
         for w in chunk:
             if w is not None:
                 _check_weights(w)
-        z = _harmonic_block(phi, chunk[0] if single else None, s)
+        unit = _unit_vectors(phi, s)
         first, local = _chunk_segments(starts, lo, hi)
         index = _bin_index(phi, bins, s)
         if local.size > 1:
@@ -256,7 +250,7 @@ def shared_segment_sums(phases, weight_sets, starts, harmonics: int,
                                       np.diff(local, append=hi - lo))
         span = slice(first * bins, (first + local.size) * bins)
         for k, w in enumerate(chunk):
-            _add_sums(z, None if single else w, local, sums[k][first : first + local.size])
+            _add_sums(_harmonic_block(unit, w, s), local, sums[k][first : first + local.size])
             _histograms(index, w, local.size * bins, hist_w[k][span], hist_w2[k][span])
     counts = np.diff(starts, append=n).astype(np.int64)
     shape = (count, bins)
