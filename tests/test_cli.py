@@ -41,9 +41,12 @@ def test_bad_model_file_is_one_line_naming_field_and_value(tmp_path, capsys):
 def test_table_command_builds_and_caches(tmp_path, capsys):
     arguments = ["table", "--model", data_file("lantern.toml"), "--start",
                  "2026-12-02T00:00:00", "--stop", "2026-12-02T03:00:00",
-                 "--cache", str(tmp_path)]
+                 "--site", data_file("corvid-ridge.toml"), "--table-cache", str(tmp_path)]
     assert main(arguments) == 0
-    assert "segments of 60 min" in capsys.readouterr().out
+    out = capsys.readouterr().out
+    assert "segments of 60 min" in out
+    # calendar times, not ns; whole TT hours (TT - UTC = 69.184 s since 2017, IERS)
+    assert "2026-12-01T23:58:50Z to 2026-12-02T03:58:50Z (UTC)" in out
     cached = list(tmp_path.glob("barycentre-*.arrow"))
     assert len(cached) == 1
     stamp = cached[0].stat().st_mtime_ns
@@ -70,7 +73,8 @@ def test_inspect_an_archive_file(tmp_path, capsys):
     with pa.OSFile(str(events), "wb") as sink, pa.ipc.new_file(sink, table.schema) as w:
         w.write_table(table)
     out = tmp_path / "tagged.arrow"
-    assert main(["tag", str(events), "--model", data_file("lantern.toml"), "--out", str(out),
+    assert main(["tag", str(events), "--model", data_file("lantern.toml"),
+                 "--site", data_file("corvid-ridge.toml"), "--out", str(out),
                  "--quiet"]) == 0
     capsys.readouterr()
     assert main(["inspect", str(out), "--json", "--rows", "2"]) == 0
