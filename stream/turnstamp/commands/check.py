@@ -88,10 +88,11 @@ def tonight(site, night: str | None, now_unix: float | None = None) -> tuple[int
     east_deg = site.longitude_deg or 0.0
     east_deg = east_deg - 360.0 if east_deg > 180.0 else east_deg
     noon_offset = int(round(-east_deg / 15.0 * HOUR_NS))  # local noon - UTC noon
-    if night is not None:
-        day = utc_instant("--night", night[:10])
-        return day + noon_offset, day + noon_offset + DAY_NS
+    if night is not None:  # UTC midnight + 12 h = UTC noon
+        start = utc_instant("--night", night[:10]) + DAY_NS // 2 + noon_offset
+        return start, start + DAY_NS
     now = unix_to_ns(time.time() if now_unix is None else now_unix)
+    # the epoch of the ns count is UTC noon: local noons fall on noon_offset + k days
     start = ((now - noon_offset) // DAY_NS) * DAY_NS + noon_offset  # the last local noon
     return start, start + DAY_NS
 
