@@ -119,7 +119,7 @@ def ascii_text(text: str) -> str:
     return "".join(c if c.isascii() else _TO_ASCII.get(c, "?") for c in text)
 
 
-_SHORT_PROBLEM = {"OUTSIDE_MODEL_VALIDITY": "outside model validity (not in the statistics)",
+_SHORT_PROBLEM = {"OUTSIDE_MODEL_VALIDITY": "outside model validity (not in statistics)",
                   "EARTH_ORIENTATION_PREDICTED": "Earth orientation predicted",
                   "EARTH_ORIENTATION_HELD": "Earth orientation held",
                   "LEAP_TABLE_EXPIRED": "leap table expired",
@@ -143,9 +143,12 @@ def problems_text(status: dict) -> str | None:
         f"{count_text(counts[k])} {_SHORT_PROBLEM.get(k, k.lower())}" for k in order)
 
 
-def unusable_text(target: dict) -> str | None:
-    """Why a target's statistics hold no event although events were tagged, or None."""
+def unusable_text(target: dict, short: bool = False) -> str | None:
+    """Why a target's statistics hold no event although events were tagged, or None
+    (``short``: for a narrow table cell)."""
     excluded = target.get("excluded_from_statistics")
     if not is_count(excluded) or not excluded:
         return None
+    if short:
+        return f"{count_text(excluded)} outside validity"
     return f"none usable: {count_text(excluded)} outside model validity"

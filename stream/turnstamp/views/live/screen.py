@@ -204,7 +204,7 @@ def _targets_table(targets: list[dict]) -> Table:
     for target in targets:
         labels = _target_labels(target)
         index = 0
-        unusable = unusable_text(target)
+        unusable = unusable_text(target, short=True)
         for recipe in (r for r in target.get("recipes") or [] if isinstance(r, dict)):
             for row in _recipe_rows(recipe, unusable):
                 table.add_row(labels[index] if index < len(labels) else "", *row)
