@@ -153,7 +153,7 @@ def _send(endpoint: str, seconds: float, rate: float, fault: str,
 
     try:
         publish_night(endpoint, seconds=seconds, rate=rate, pulsed_fraction=0.006,
-                      fault=fault, seed=1, source="kestrel-array", out=None)
+                      fault=fault, seed=1, source="kestrel-array", report=False)
     except Exception as exc:  # reported by run_demo, which then fails
         failures.append(exc)
 

@@ -74,7 +74,7 @@ def demo_night(seconds: float, rate: float, pulsed_fraction: float, start_utc_ns
 def publish_night(endpoint: str, *, pattern: str = "push", bind: bool = False,
                   seconds: float = 60.0, rate: float = 20_000.0, pulsed_fraction: float = 0.01,
                   speed: float = 1.0, start_utc_ns: int | None = None, fault: str = "none",
-                  seed: int = 0, source: str = "simulator", out=sys.stderr,
+                  seed: int = 0, source: str = "simulator", report: bool = True,
                   on_batch: Callable[[int], None] | None = None,
                   site: SiteConfig = DEMO_SITE, target: TargetConfig | None = None) -> int:
     """Publish a simulated night with ``EventPublisher``; returns the exit status (0).
@@ -99,8 +99,8 @@ def publish_night(endpoint: str, *, pattern: str = "push", bind: bool = False,
         Random seed.
     source : str
         Source name in the message headers.
-    out : file, optional
-        Where the closing line is printed (None: silent).
+    report : bool
+        Print a closing line on stderr (how many events and messages were sent).
     on_batch : callable, optional
         Called with the number of events of each message sent (progress).
     site, target : SiteConfig, TargetConfig, optional
@@ -125,7 +125,7 @@ def publish_night(endpoint: str, *, pattern: str = "push", bind: bool = False,
             sent += len(batch)
             if on_batch is not None:
                 on_batch(len(batch))
-        if out is not None:
+        if report:
             print(f"simulator: sent {sent} events in {publisher.sequence} messages to "
-                  f"{endpoint}", file=out)
+                  f"{endpoint}", file=sys.stderr)
     return 0
