@@ -132,3 +132,29 @@ def test_a_clock_step_is_drawn_as_a_step_beside_an_unobstructed_legend(hours):
     box = legend.get_window_extent()
     assert box.x0 >= ax.get_window_extent().x1  # beside the axes: no chunk behind it
     assert "HH:MM:SS" in ax.get_xlabel()  # a one-minute span needs seconds
+
+
+def test_a_clock_drift_is_drawn_as_a_slope(hours):
+    import json
+
+    from turnstamp.views.report.figuredata import clock_data
+
+    starts = [tt("2026-12-02T02:00:00") + k * 600 * NS_PER_S for k in range(6)]
+    reference = starts[3]
+    verdict = {"kind": "drift", "frequency_hz": 100.0, "tolerance_us": 200.0,
+               "reference_ns": reference, "offset_us": 0.0,
+               "drift": {"offset_cycles": 0.001, "rate_cycles_per_s": 1e-6}}
+    row = {"target": "t", "recipe": "all", "status": "WARN", "kind": "drift",
+           "summary": "WARN: drift", "verdict_json": json.dumps(verdict),
+           "tolerance_cycles": 0.02, "chunk_start_tt_ns": starts,
+           "chunk_end_tt_ns": [s + 600 * NS_PER_S for s in starts],
+           "chunk_shift_cycles": [0.0] * 6, "chunk_sigma_cycles": [0.001] * 6,
+           "chunk_detected": [True] * 6}
+    data = clock_data(row, hours)
+    # at 100 Hz one cycle is 10 000 µs; 1e-6 cycles/s = 36 µs/h
+    first_mid = starts[0] + 300 * NS_PER_S
+    expected = (0.001 + 1e-6 * (first_mid - reference) / NS_PER_S) * 1e4
+    assert data["drift_line"]["offset_us"][0] == pytest.approx(expected)
+    fig = draw_clock(Figure, "t", data, hours)
+    labels = [str(line.get_label()) for line in fig.axes[0].get_lines()]
+    assert "fitted drift +36.0 µs/h" in labels

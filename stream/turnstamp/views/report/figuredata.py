@@ -260,6 +260,7 @@ def clock_data(row: dict | None, hours: UtcHours | None) -> dict | None:
         "step_time_utc_hours": (float(hours(np.int64(verdict["step_time_ns"]))[0])
                                 if hours and verdict.get("step_time_ns") is not None else None),
         "step_levels_us": _step_levels(verdict, to_us),
+        "drift_line": _drift_line(verdict, to_us, mid, hours),
         "computed_at_utc_ns": row.get("computed_at_utc_ns"),
     }
 
@@ -271,6 +272,22 @@ def _step_levels(verdict: dict, to_us: float | None) -> list[float] | None:
         return None
     before, after = finite(step.get("before_cycles")), finite(step.get("after_cycles"))
     return None if before is None or after is None else [before * to_us, after * to_us]
+
+
+def _drift_line(verdict: dict, to_us: float | None, mid: np.ndarray,
+                hours: UtcHours | None) -> dict | None:
+    """The fitted drift over the chunks' span, when the verdict is a drift: UTC hours and
+    offsets (µs) at both ends."""
+    drift, reference = verdict.get("drift"), verdict.get("reference_ns")
+    if (verdict.get("kind") != "drift" or not isinstance(drift, dict) or reference is None
+            or not to_us or hours is None or not mid.size):
+        return None
+    offset, rate = finite(drift.get("offset_cycles")), finite(drift.get("rate_cycles_per_s"))
+    if offset is None or rate is None:
+        return None
+    ends = np.array([mid.min(), mid.max()], np.int64)
+    cycles = offset + rate * (ends - int(reference)) / NS_PER_S
+    return {"utc_hours": hours(ends), "offset_us": cycles * to_us}
 
 
 def phase_time_map_data(grid: Grid | None, hours: UtcHours | None) -> dict | None:

@@ -223,6 +223,11 @@ def _clock_model(ax, d: dict, x: np.ndarray, hours: UtcHours) -> None:
         ax.plot([min(x.min(), step_x), step_x, step_x, max(x.max(), step_x)],
                 [levels[0], levels[0], levels[1], levels[1]], color=colour, linestyle="--",
                 linewidth=1.4, label=f"fitted step {levels[1] - levels[0]:+.1f} µs")
+    elif d.get("drift_line") is not None:
+        line = d["drift_line"]
+        rate = np.diff(line["offset_us"])[0] / max(np.diff(line["utc_hours"])[0], 1e-12)
+        ax.plot(hours.plot(line["utc_hours"]), line["offset_us"], color=colour, linestyle="--",
+                linewidth=1.4, label=f"fitted drift {rate:+.1f} µs/h")
     elif d["fitted_offset_us"] is not None:
         ax.axhline(d["fitted_offset_us"], color=colour, linestyle="--", linewidth=1.2,
                    label=f"night's offset {d['fitted_offset_us']:+.1f} µs")
