@@ -255,12 +255,13 @@ class QualityCounts:
     def add(self, target: str, quality: np.ndarray) -> None:
         """Count the ``quality`` flags (uint32 array, one per tagged row) of ``target``."""
         quality = np.asarray(quality, dtype=np.uint32)
-        if not quality.size or not quality.any():
+        present = int(np.bitwise_or.reduce(quality)) if quality.size else 0
+        if not present:  # one pass for the usual clean batch
             return
         counts = self.by_target.setdefault(target, {})
         for flag in Quality:
-            n = int(np.count_nonzero(quality & np.uint32(flag)))
-            if n:
+            if present & flag:
+                n = int(np.count_nonzero(quality & np.uint32(flag)))
                 counts[flag.name] = counts.get(flag.name, 0) + n
 
     def of(self, target: str) -> dict[str, int]:
