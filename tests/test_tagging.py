@@ -34,7 +34,8 @@ def test_tag_a_file_and_read_the_archive(tmp_path, events, parquet, capsys):
     source = tmp_path / ("events.parquet" if parquet else "events.arrow")
     table = write_events(source, events, parquet)
     out = tmp_path / "tagged.arrow"
-    assert main(["tag", str(source), "--model", data_file("lantern.toml"), "--scale", "UTC",
+    assert main(["tag", str(source), "--model", data_file("lantern.toml"),
+                 "--site", data_file("corvid-ridge.toml"), "--scale", "UTC",
                  "--out", str(out), "--target", "lantern", "--quiet"]) == 0
     printed = capsys.readouterr().out
     assert f"{table.num_rows} events" in printed and "0 rejected" in printed
@@ -66,7 +67,8 @@ def test_archive_phase_agrees_with_the_astropy_route_to_its_accuracy(tmp_path, e
     source = tmp_path / "events.arrow"
     write_events(source, events)
     out = tmp_path / "tagged.arrow"
-    assert main(["tag", str(source), "--model", data_file("lantern.toml"), "--out", str(out),
+    assert main(["tag", str(source), "--model", data_file("lantern.toml"),
+                 "--site", data_file("corvid-ridge.toml"), "--out", str(out),
                  "--quiet"]) == 0
     archive = pa.ipc.open_file(str(out)).read_all().slice(0, 30)
     site = demo_env.observer
@@ -95,6 +97,7 @@ def test_bad_event_files_name_the_field_and_value(tmp_path, capsys):
     with pa.OSFile(str(missing), "wb") as sink, pa.ipc.new_file(sink, table.schema) as w:
         w.write_table(table)
     assert main(["tag", str(missing), "--model", data_file("lantern.toml"),
+                 "--site", data_file("corvid-ridge.toml"),
                  "--out", str(tmp_path / "x.arrow")]) == 2
     assert "time_ns" in capsys.readouterr().err
 
@@ -102,6 +105,7 @@ def test_bad_event_files_name_the_field_and_value(tmp_path, capsys):
     pq.write_table(pa.table({"event_id": np.arange(3, dtype=np.uint64),
                              "time_ns": np.array([1.0, 2.0, 3.0])}), floats)
     assert main(["tag", str(floats), "--model", data_file("lantern.toml"),
+                 "--site", data_file("corvid-ridge.toml"),
                  "--out", str(tmp_path / "y.arrow")]) == 2
     err = capsys.readouterr().err
     assert "time_ns" in err and "double" in err
@@ -109,6 +113,7 @@ def test_bad_event_files_name_the_field_and_value(tmp_path, capsys):
     garbage = tmp_path / "garbage.arrow"
     garbage.write_bytes(b"not arrow at all")
     assert main(["tag", str(garbage), "--model", data_file("lantern.toml"),
+                 "--site", data_file("corvid-ridge.toml"),
                  "--out", str(tmp_path / "z.arrow")]) == 2
     assert "garbage.arrow" in capsys.readouterr().err
 
@@ -125,7 +130,8 @@ def test_bad_rows_go_to_the_rejects_file(tmp_path, events):
     with pa.OSFile(str(source), "wb") as sink, pa.ipc.new_file(sink, table.schema) as w:
         w.write_table(table)
     out = tmp_path / "tagged.arrow"
-    assert main(["tag", str(source), "--model", data_file("lantern.toml"), "--out", str(out),
+    assert main(["tag", str(source), "--model", data_file("lantern.toml"),
+                 "--site", data_file("corvid-ridge.toml"), "--out", str(out),
                  "--quiet"]) == 0
     archive = pa.ipc.open_file(str(out)).read_all()
     rejects = pa.ipc.open_file(str(tmp_path / "tagged.rejects.arrow")).read_all()

@@ -6,11 +6,15 @@ __all__ = ["add_parser", "run"]
 
 
 def add_parser(subparsers) -> None:
-    p = subparsers.add_parser("bench", help="benchmark the hot paths (not a test)")
-    p.add_argument("--json", action="store_true", help="machine-readable output")
-    p.add_argument("--quick", action="store_true", help="smaller sizes")
-    p.add_argument("--service", action="store_true", help="also ZeroMQ -> Arrow end to end")
-    p.add_argument("--soak", type=float, default=0.0, help="seconds of memory soak")
+    p = subparsers.add_parser("bench", help="benchmark the hot paths (not a test)",
+                              description="Measure the hot paths against baselines taken in "
+                                          "the same run on the same machine.")
+    p.add_argument("--json", action="store_true", help="machine-readable output on stdout")
+    p.add_argument("--quick", action="store_true", help="smaller sizes, for a quick look")
+    p.add_argument("--service", action="store_true",
+                   help="also measure the service end to end, ZeroMQ to Arrow files")
+    p.add_argument("--soak", type=float, default=0.0, metavar="SECONDS",
+                   help="seconds of memory soak at 1e5 events/s (0: none)")
     p.set_defaults(run=run)
 
 

@@ -23,17 +23,16 @@ identical outputs.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import NamedTuple
 
 import numpy as np
 
-from .accounting import Counters, FeedResult
+from .accounting import EXCLUDED_FROM_STATISTICS, Counters, FeedResult, QualityCounts
 from .batch import EventBatch, RejectCode, check_values, describe_rejects
 from .clock.chunks import ChunkOffset, chunk_offsets
 from .clock.diagnose import diagnose
 from .clock.verdict import ClockVerdict
-from .flags import Quality
 from .moments import DEFAULT_BINS, MAX_HARMONICS, PhaseMoments
 from .readout import profile_row, significance_row
 from .refold import MIN_EVENTS, Reservoir, refold_scores, refolded_verdict
@@ -85,6 +84,7 @@ class Pipeline:
         self.settings = settings
         self.targets = {t.name: t for t in targets}
         self.counters = Counters()
+        self.quality = QualityCounts()  # tagged events with a quality problem, by flag
         self.moments: dict[str, list[TimeBinnedMoments]] = {}
         self.reservoirs: dict[str, Reservoir] = {}
         self.phase_reference: dict[str, str] = {}
@@ -204,10 +204,12 @@ class Pipeline:
 
     def accumulate(self, name: str, tt_ns, phase, weight, recipe_flags, quality, correction_s):
         """Add tagged events to a target's statistics: each recipe takes the rows with
-        its bit set, except those tagged outside their model's validity. Used by
-        ``feed`` and to replay archive rows after a restart."""
+        its bit set, except those tagged outside their model's validity (counted in
+        ``quality`` with every other flag). Used by ``feed`` and to replay archive
+        rows after a restart."""
         target = self.targets[name]
-        usable = (quality & Quality.OUTSIDE_MODEL_VALIDITY) == 0
+        self.quality.add(name, quality)
+        usable = (quality & EXCLUDED_FROM_STATISTICS) == 0
         for bit, (recipe, moments) in enumerate(zip(target.recipes, self.moments[name],
                                                     strict=True)):
             chosen = usable & ((recipe_flags >> np.uint32(bit)) & 1).astype(bool)
@@ -307,6 +309,11 @@ class Pipeline:
                                frequency_spread_hz=float(np.ptp(apparent)) / 2)
             if verdict.kind in ("no_signal", "smeared", "insufficient_signal"):
                 verdict = self._refold(name, verdict)
+            excluded = self.quality.excluded(name)
+            if excluded:  # said first: "no signal" may only mean no usable events
+                verdict = replace(verdict, lines=[
+                    f"{excluded:,} events of {name} fell outside its spin model's validity "
+                    "window: not in this check.", *verdict.lines])
             out.append((name, target.recipes[target.clock_recipe].name, verdict, chunks))
         return out
 
@@ -335,6 +342,7 @@ class Pipeline:
         return {
             "version": STATE_VERSION,
             "counters": self.counters.to_state(),
+            "quality": self.quality.to_state(),
             "targets": {
                 name: {"phase_reference": self.phase_reference[name],
                        "recipes": [t.recipes[i].name for i in range(len(t.recipes))],
@@ -347,6 +355,7 @@ class Pipeline:
         start afresh; returns a note for each."""
         notes = []
         self.counters = Counters.from_state(state["counters"])
+        self.quality = QualityCounts.from_state(state.get("quality"))
         for name, saved in state.get("targets", {}).items():
             target = self.targets.get(name)
             problem = resume_problem(name, saved, None if target is None else (
