@@ -62,13 +62,11 @@ def lantern_table(demo_env, night_start_tt):
 
 
 @pytest.fixture(scope="session")
-def demo_site_file(tmp_path_factory):
-    """A site file with the demo's invented site (``tag`` wants a site named)."""
-    from turnstamp.demo import site_toml
+def demo_site_file():
+    """The demo's invented site as a file (``tag`` wants a site named)."""
+    from turnstamp.demo import data_file
 
-    path = tmp_path_factory.mktemp("site") / "site.toml"
-    path.write_text(site_toml())
-    return path
+    return data_file("corvid-ridge.toml")
 
 
 @pytest.fixture

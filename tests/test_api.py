@@ -64,12 +64,13 @@ def test_tag_events_equals_the_tag_command(tmp_path, events_table, capsys):
             pa.ipc.new_file(sink, events_table.schema) as writer:
         writer.write_table(events_table)
     out = tmp_path / "tagged.arrow"
-    site = tmp_path / "site.toml"
-    site.write_text(site_toml())
-    assert main(["tag", str(source), "--model", data_file("lantern.toml"), "--target",
-                 "lantern", "--out", str(out), "--site", str(site), "--quiet"]) == 0
+    assert main(["tag", str(source), "--model", data_file("lantern.toml"),
+                 "--site", data_file("corvid-ridge.toml"), "--target",
+                 "lantern", "--out", str(out), "--quiet"]) == 0
     capsys.readouterr()
     command = pa.ipc.open_file(str(out)).read_all()
+    site = tmp_path / "site.toml"
+    site.write_text(site_toml())  # the demo site, as the command above is given
 
     from_table = turnstamp.tag_events(events_table, data_file("lantern.toml"), site,
                                       target="lantern", source="events.arrow")

@@ -66,8 +66,7 @@ def refused(capsys, *args, naming):
 
 def test_no_site(capsys, folder):
     events = events_file(folder, night_times())
-    refused(capsys, events, "--model", MODEL, "--out", folder / "t.arrow",
-            naming=["--site", "[site]"])
+    refused(capsys, events, "--model", MODEL, "--out", folder / "t.arrow", naming=["--site"])
 
 
 @pytest.mark.parametrize("values, naming", [
@@ -177,7 +176,7 @@ def test_events_the_model_does_not_cover_are_said_so(capsys, folder, demo_site_f
     status, out, _ = run_tag(capsys, events_file(folder, late), "--model", MODEL, "--site",
                              demo_site_file, "--out", folder / "t.arrow")
     assert status == 0
-    assert "500 tagged outside the spin model's validity window" in out
+    assert "500 events of Lantern tagged outside the spin model's validity window" in out
     assert "no events in the statistics" in out and "inf" not in out
 
 

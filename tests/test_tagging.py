@@ -197,7 +197,9 @@ def test_tag_refuses_without_a_site(tmp_path, events, capsys):
     # half a cycle off); now a site must be named
     source = tmp_path / "events.arrow"
     write_events(source, events[:1])
-    assert tag(source, "--out", tmp_path / "tagged.arrow") == 2
+    with pytest.raises(SystemExit) as refused:  # argparse: a required option
+        tag(source, "--out", tmp_path / "tagged.arrow")
+    assert refused.value.code == 2
     err = capsys.readouterr().err
     assert "--site" in err and "Traceback" not in err
     assert not (tmp_path / "tagged.arrow").exists()
@@ -294,7 +296,7 @@ def test_summary_counts_quality_problems_and_never_prints_minus_inf(tmp_path, de
                                   "time_ns": times}))
     assert tag(source, "--out", tmp_path / "late-tagged.arrow", site=demo_site_file) == 0
     printed = capsys.readouterr().out
-    assert "2,000 tagged outside the spin model's validity window" in printed
+    assert "2,000 events of Lantern tagged outside the spin model's validity window" in printed
     assert "no events in the statistics" in printed
     assert "inf" not in printed and "H = 0.0" not in printed
     assert tag(source, "--out", tmp_path / "late.json.arrow", "--json",

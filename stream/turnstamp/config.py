@@ -12,7 +12,15 @@ import tomllib
 from pathlib import Path
 from typing import Annotated, Literal
 
-from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    WithJsonSchema,
+    field_validator,
+    model_validator,
+)
 
 from .errors import ConfigError
 
@@ -28,8 +36,10 @@ __all__ = [
     "parse_energy_kev",
 ]
 
-_FROZEN = ConfigDict(frozen=True, extra="forbid")
-_ENERGY = re.compile(r"^\s*([-+0-9.eE]+)\s*(eV|keV|MeV|GeV|TeV|PeV)\s*$")
+_FROZEN = ConfigDict(frozen=True, extra="forbid", use_attribute_docstrings=True)
+"""Every model: immutable, unknown keys refused, each field's docstring in the schema."""
+_ENERGY_PATTERN = r"^\s*([-+0-9.eE]+)\s*(eV|keV|MeV|GeV|TeV|PeV)\s*$"
+_ENERGY = re.compile(_ENERGY_PATTERN)
 _KEV_PER_UNIT = {"eV": 1e-3, "keV": 1.0, "MeV": 1e3, "GeV": 1e6, "TeV": 1e9, "PeV": 1e12}
 
 
@@ -46,7 +56,12 @@ def parse_energy_kev(value) -> float | None:
     return float(match.group(1)) * _KEV_PER_UNIT[match.group(2)]
 
 
-EnergyKeV = Annotated[float | None, BeforeValidator(parse_energy_kev)]
+EnergyKeV = Annotated[
+    float | None, BeforeValidator(parse_energy_kev),
+    WithJsonSchema({"anyOf": [{"type": "string", "pattern": _ENERGY_PATTERN,
+                               "examples": ["500 GeV", "1 TeV", "2.5 keV"]},
+                              {"type": "null"}]}, mode="validation")]
+"""An energy written with its unit ("500 GeV"); held in keV."""
 
 
 class ClockCorrectionConfig(BaseModel):
@@ -58,9 +73,13 @@ class ClockCorrectionConfig(BaseModel):
 
     model_config = _FROZEN
     name: str = Field(min_length=1)
+    """What this link corrects, e.g. "station clock -> GPS" (recorded in the outputs)."""
     file: Path | None = None
+    """CSV of ``instant,offset_s`` lines (relative to the configuration file)."""
     instants: tuple[str, ...] = ()
+    """Table instants as ISO labels in the instrument's time scale (with ``offsets_s``)."""
     offsets_s: tuple[float, ...] = ()
+    """Offset to add at each of ``instants``, seconds."""
 
     @model_validator(mode="after")
     def _one_source(self):
@@ -76,9 +95,13 @@ class SiteConfig(BaseModel):
 
     model_config = _FROZEN
     name: str = Field(min_length=1, max_length=64)
+    """Name of the observatory (recorded in the outputs)."""
     latitude_deg: float | None = Field(default=None, ge=-90, le=90)
+    """Geodetic latitude (WGS84), degrees north."""
     longitude_deg: float | None = Field(default=None, ge=-180, le=360)
+    """Geodetic longitude (WGS84), degrees east (west is negative)."""
     height_m: float | None = Field(default=None, gt=-1000, lt=10_000)
+    """Height above the WGS84 ellipsoid, metres."""
     orbit_file: Path | None = None
     """Arrow or CSV with tt_ns, x_m, y_m, z_m (GCRS) and optionally vx/vy/vz_m_s."""
     earth_orientation_file: Path | None = None
@@ -86,6 +109,7 @@ class SiteConfig(BaseModel):
     ephemeris_file: Path | None = None
     """A JPL SPK kernel; default: DE421 shipped by the skyfield-data package."""
     clock_corrections: tuple[ClockCorrectionConfig, ...] = ()
+    """The site clock chain, applied in order to every event time."""
 
     @model_validator(mode="after")
     def _where(self):
@@ -103,11 +127,17 @@ class RecipeConfig(BaseModel):
 
     model_config = _FROZEN
     name: str = Field(pattern=r"^[A-Za-z0-9_.-]{1,32}$")
+    """Recipe name, unique within the target (letters, digits, _ . -)."""
     energy_min: EnergyKeV = None
+    """Keep events at or above this energy, with its unit: "500 GeV"."""
     energy_max: EnergyKeV = None
+    """Keep events below this energy, with its unit: "10 TeV"."""
     max_distance_deg: float | None = Field(default=None, gt=0, le=180)
+    """Keep events reconstructed within this angle of the target, degrees."""
     min_score: float | None = None
+    """Keep events whose classification score is at least this."""
     use_weights: bool = False
+    """Use the events' weights in the statistics (weighted H-test)."""
     telescopes_any: int | None = Field(default=None, ge=1)
     """Keep events seen by any telescope in this bit mask."""
 
@@ -124,11 +154,15 @@ class TargetConfig(BaseModel):
 
     model_config = _FROZEN
     name: str = Field(pattern=r"^[A-Za-z0-9_.+-]{1,32}$")
+    """Target name, unique (letters, digits, _ . + -); written to every output row."""
     models: tuple[Path, ...] = Field(min_length=1)
+    """Spin-model files (TOML/JSON); several for successive validity windows."""
     template: Path | None = None
+    """Pulse template file; without one there is no clock-chain check for the target."""
     region_radius_deg: float | None = Field(default=None, gt=0, le=180)
     """Archive only events within this distance (when the stream has directions)."""
     recipes: tuple[RecipeConfig, ...] = (RecipeConfig(name="all"),)
+    """Event selections, each with its own statistics (default: one recipe "all")."""
     clock_check_recipe: str | None = None
     """Recipe whose events feed the clock-chain check (default: the first)."""
 
@@ -156,11 +190,15 @@ class CurveConfig(BaseModel):
 
 
 class IntakeConfig(BaseModel):
+    """Where the event stream comes in."""
+
     model_config = _FROZEN
     endpoints: tuple[str, ...] = ("tcp://127.0.0.1:5555",)
+    """ZeroMQ endpoints of the event stream (loopback unless you say otherwise)."""
     pattern: Literal["pull", "sub"] = "pull"
     """pull: back-pressure, nothing lost (use for the archive). sub: best effort."""
     topics: tuple[str, ...] = ("",)
+    """With pattern sub: topic prefixes to subscribe to ("" is every message)."""
     bind: bool = True
     """True: turnstamp binds and event builders connect (several may). False: connect."""
     receive_high_water_mark: int = Field(default=200, ge=1)
@@ -169,9 +207,13 @@ class IntakeConfig(BaseModel):
     max_message_bytes: int = Field(default=64 * 2**20, ge=1024)
     """Larger messages are refused by ZeroMQ and counted: 64 MiB is ~1 M events."""
     max_events_per_message: int = Field(default=1_000_000, ge=1)
+    """Messages with more events are refused whole (and counted)."""
     plausible_from: str = "1990-01-01"
+    """Event times before this UTC date are rejected as implausible (a wrong epoch)."""
     plausible_until: str = "2100-01-01"
+    """Event times after this UTC date are rejected as implausible (a wrong unit)."""
     curve: CurveConfig | None = None
+    """CurveZMQ authentication and encryption of the intake (off when absent)."""
 
     @field_validator("endpoints")
     @classmethod
@@ -183,13 +225,19 @@ class IntakeConfig(BaseModel):
 
 
 class StatisticsConfig(BaseModel):
+    """The periodicity statistics kept per target, recipe and window."""
+
     model_config = _FROZEN
     harmonics: int = Field(default=20, ge=1, le=20)
+    """Harmonics summed (Z^2_m, H-test search up to this many)."""
     bins: int = Field(default=32, ge=4, le=1024)
+    """Phase bins of the pulse profiles."""
     interval_s: float = Field(default=10.0, gt=0)
     """Resolution of sliding windows and of clock-check chunks."""
     windows_minutes: tuple[float, ...] = (5.0, 60.0)
+    """Sliding windows besides the cumulative total, minutes (multiples of interval_s)."""
     update_every_s: float = Field(default=1.0, gt=0)
+    """Cadence of the significance and profile rows and of the live updates, s."""
     retain_hours: float = Field(default=24.0, gt=0)
     """Per-interval detail kept for windows and the clock check; older data stays in
     the cumulative totals. Bounds memory over long runs."""
@@ -205,22 +253,31 @@ class StatisticsConfig(BaseModel):
 
 
 class ClockCheckConfig(BaseModel):
+    """The clock-chain check: per-chunk template offsets and a verdict."""
+
     model_config = _FROZEN
     chunk_seconds: float | None = 60.0
     """Chunk length for per-chunk offsets; None: close chunks by accumulated signal."""
     tolerance_cycles: float = Field(default=0.02, gt=0, lt=0.5)
     """20 milliperiods: common practice for folding high-energy photons."""
     tolerance_us: float | None = Field(default=None, gt=0)
+    """An absolute tolerance in µs as well (the tighter of the two applies)."""
     every_s: float = Field(default=10.0, gt=0)
+    """Cadence of the clock check, s."""
 
 
 class BarycentreConfig(BaseModel):
+    """The barycentre correction tables (piecewise Chebyshev)."""
+
     model_config = _FROZEN
     segment_minutes: float = Field(default=60.0, gt=0)
+    """Length of one table segment, minutes."""
     degree: int = Field(default=10, ge=3, le=30)
     """Degree 10 over one hour interpolates to ~1e-4 ns at a ground site."""
     shapiro_bodies: tuple[Literal["sun", "jupiter"], ...] = ("sun",)
+    """Bodies whose Shapiro delay is included."""
     hours_before: float = Field(default=12.0, ge=0)
+    """Table coverage before the start of the service, hours."""
     hours_after: float = Field(default=36.0, gt=0)
     """Tables cover [now - before, now + after] at start and are extended ahead of
     need in the background, never on the hot path."""
@@ -231,16 +288,24 @@ class BarycentreConfig(BaseModel):
 
 
 class OutputConfig(BaseModel):
+    """Where and how results are written."""
+
     model_config = _FROZEN
     directory: Path = Path("turnstamp-out")
+    """Output folder (relative to the configuration file)."""
     rotate_minutes: float = Field(default=60.0, gt=0)
+    """Start a new file of each stream after this many minutes."""
     rotate_megabytes: float = Field(default=512.0, gt=0)
+    """Start a new file of each stream after this many megabytes."""
     publish_endpoint: str | None = None
     """ZeroMQ PUB endpoint for live viewers (bound, loopback by default)."""
     checkpoint_every_s: float = Field(default=5.0, gt=0)
+    """Cadence of the checkpoint a restart resumes from, s."""
 
 
 class ControlConfig(BaseModel):
+    """The control socket."""
+
     model_config = _FROZEN
     endpoint: str | None = None
     """ZeroMQ REP endpoint taking 'status', 'reload', 'stop' (loopback recommended)."""
@@ -251,13 +316,21 @@ class ServiceConfig(BaseModel):
 
     model_config = _FROZEN
     intake: IntakeConfig = IntakeConfig()
+    """Where the event stream comes in."""
     site: SiteConfig
+    """The observatory (required: barycentric times depend on it)."""
     targets: tuple[TargetConfig, ...] = Field(min_length=1)
+    """The pulsars to watch."""
     statistics: StatisticsConfig = StatisticsConfig()
+    """Periodicity statistics."""
     clock_check: ClockCheckConfig = ClockCheckConfig()
+    """The clock-chain check."""
     barycentre: BarycentreConfig = BarycentreConfig()
+    """Barycentre correction tables."""
     output: OutputConfig = OutputConfig()
+    """Output files and live updates."""
     control: ControlConfig = ControlConfig()
+    """The control socket."""
 
     @model_validator(mode="after")
     def _unique_targets(self):

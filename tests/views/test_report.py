@@ -294,7 +294,7 @@ class FakeTerminal(io.StringIO):
 
 def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, tmp_path,
                                                                         monkeypatch, capsys):
-    args = argparse.Namespace(output_dir=str(night["folder"]), to=str(tmp_path / "once"),
+    args = argparse.Namespace(output_dir=str(night["folder"]), out_dir=str(tmp_path / "once"),
                               every=None)
     assert report_main(args) == 0
     assert capsys.readouterr().out.strip().endswith("index.html")
@@ -305,7 +305,7 @@ def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, t
     monkeypatch.setattr("turnstamp.views.report.command.time.sleep", interrupt)
     terminal = FakeTerminal()  # standard error on a terminal: progress bars
     monkeypatch.setattr("sys.stderr", terminal)
-    args = argparse.Namespace(output_dir=str(night["folder"]), to=str(tmp_path / "every"),
+    args = argparse.Namespace(output_dir=str(night["folder"]), out_dir=str(tmp_path / "every"),
                               every=30.0)
     assert report_main(args) == 0
     page = (tmp_path / "every" / "index.html").read_text()
@@ -313,13 +313,13 @@ def test_report_main_builds_once_or_repeats_with_a_self_refreshing_page(night, t
     assert "wrote" in capsys.readouterr().out
     assert "building the report" in terminal.getvalue() and "next report" in terminal.getvalue()
     monkeypatch.undo()
-    missing = argparse.Namespace(output_dir=str(tmp_path / "nowhere"), to=None, every=None)
+    missing = argparse.Namespace(output_dir=str(tmp_path / "nowhere"), out_dir=None, every=None)
     assert report_main(missing) == 2
     assert "no such output folder" in capsys.readouterr().err
 
 
 def test_offline_tagging_output_alone_gives_a_report(tmp_path, demo_env, lantern,
-                                                     night_start_tt, demo_site_file):
+                                                     night_start_tt):
     from turnstamp.commands.main import main
 
     plan = NightPlan(start_tt_ns=night_start_tt, duration_s=120, pulsed_rate_hz=40,
@@ -332,9 +332,9 @@ def test_offline_tagging_output_alone_gives_a_report(tmp_path, demo_env, lantern
     with pa.OSFile(str(source), "wb") as sink, pa.ipc.new_file(sink, events.schema) as w:
         w.write_table(events, max_chunksize=5000)
     folder = tmp_path / "tagged"
-    assert main(["tag", str(source), "--model", data_file("lantern.toml"), "--out",
-                 str(folder / "night-of-dec-2.arrow"), "--target", "lantern",
-                 "--site", str(demo_site_file), "--quiet"]) == 0
+    assert main(["tag", str(source), "--model", data_file("lantern.toml"),
+                 "--site", data_file("corvid-ridge.toml"), "--out",
+                 str(folder / "night-of-dec-2.arrow"), "--target", "lantern", "--quiet"]) == 0
     index = build_report(folder)
     data = json.loads((index.parent / "report-data.json").read_text())
     assert data["mode"] == "tagging"
@@ -367,7 +367,7 @@ def test_without_matplotlib_the_report_says_how_to_install_it(tmp_path, monkeypa
     import sys
 
     monkeypatch.setitem(sys.modules, "matplotlib", None)  # import matplotlib now fails
-    args = argparse.Namespace(output_dir=str(tmp_path), to=None, every=None)
+    args = argparse.Namespace(output_dir=str(tmp_path), out_dir=None, every=None)
     assert report_main(args) == 2
     assert "pip install 'turnstamp[report]'" in capsys.readouterr().err
 

@@ -324,3 +324,21 @@ def test_watch_main_needs_exactly_one_source(endpoint, folder, capsys):
     args = argparse.Namespace(endpoint=endpoint, folder=folder, once=True)
     assert watch_main(args) == 2
     assert "--endpoint" in capsys.readouterr().err
+
+
+def test_events_outside_validity_are_said_on_a_screen_that_still_fits_80_by_24():
+    status = make_status(tagged_with_problems={"OUTSIDE_MODEL_VALIDITY": 120_000,
+                                               "EARTH_ORIENTATION_PREDICTED": 470_001},
+                         warnings=["ember: 120,000 events outside the validity window of its "
+                                   "spin model", "second", "leap-second table expires soon"])
+    status["targets"][1]["excluded_from_statistics"] = 120_000
+    text = screen_text(status, width=80, styles=False, note="no update for 5 s")
+    lines = text.splitlines()
+    assert len(lines) <= 24 and all(len(line) <= 80 for line in lines)
+    assert re.search(r"477,090\s+470,001\s+7,085\s+4", lines[2])  # the totals first
+    assert "tagged with a problem: 120,000 outside model validity (not in statistics)" in text
+    ember = next(line for line in lines if line.startswith("ember"))
+    assert "120,000 outside validity" in ember and "no events yet" not in text
+    assert "predicted" not in text  # a few ns: not called a problem
+    plain = render_status(status, width=80)
+    assert "profile: none usable: 120,000 outside model validity" in plain

@@ -1,19 +1,95 @@
-"""Options and set-up shared by several commands."""
+"""Options and set-up shared by several commands, and the help formatter of them all.
+
+The option names follow one convention across commands: ``--out FILE`` for one
+output file, ``--out-dir DIR`` for an output folder, ``--table-cache DIR`` for the
+barycentre table cache, ``--site FILE``, ``--model FILE`` (repeatable), ``--template
+FILE``, ``--json``, ``--force``, ``--quiet`` and ``--time-scale``. Every option's help
+states its default (``HelpFormatter`` adds it where the text does not).
+"""
 
 from __future__ import annotations
 
-__all__ = ["add_site_option", "site_environment"]
+import argparse
+
+from ..errors import InputError
+
+__all__ = [
+    "HelpFormatter",
+    "add_site_option",
+    "add_table_cache_option",
+    "site_environment",
+    "utc_instant",
+    "utc_text",
+    "positive_seconds",
+    "TIME_EXAMPLE",
+]
+
+TIME_EXAMPLE = "a UTC calendar time like 2026-12-01T21:00:00"
 
 
-def add_site_option(parser) -> None:
-    """``--site FILE``: a TOML file with a [site] table (or a whole configuration)."""
-    parser.add_argument("--site", help="TOML with a [site] table (default: the demo site)")
+class HelpFormatter(argparse.HelpFormatter):
+    """States every option's default: flags "(default: off)", valued options
+    "(default: VALUE)", unless the help already says what happens by default."""
+
+    def _get_help_string(self, action: argparse.Action) -> str:
+        text = action.help or ""
+        if (not action.option_strings or action.required or "default" in text.lower()
+                or action.default is argparse.SUPPRESS):
+            return text
+        if action.default is False:
+            return f"{text} (default: off)"
+        if action.default is None:
+            return text
+        return f"{text} (default: %(default)s)"
 
 
-def site_environment(path):
-    """The ``Environment`` (site tables) of ``--site``, or of the demo site without it."""
+def add_site_option(parser: argparse.ArgumentParser) -> None:
+    """``--site FILE`` (required): the observatory, never the demo site by accident."""
+    parser.add_argument(
+        "--site", required=True, metavar="FILE",
+        help="TOML file with a [site] table (name, latitude_deg, longitude_deg, height_m), "
+             "or a whole service configuration; required: a wrong site moves barycentric "
+             "times by milliseconds")
+
+
+def add_table_cache_option(parser: argparse.ArgumentParser, default: str | None) -> None:
+    """``--table-cache DIR``: where barycentre tables are cached."""
+    where = f"default: {default}" if default else "default: none, tables are built in memory"
+    parser.add_argument("--table-cache", default=default, metavar="DIR",
+                        help=f"folder of cached barycentre tables ({where})")
+
+
+def site_environment(path: str):
+    """The ``Environment`` (site tables) of the ``--site`` file."""
     from ..assemble import Environment
     from ..config import load_site
-    from ..demo import DEMO_SITE
 
-    return Environment.from_site(DEMO_SITE if path is None else load_site(path))
+    return Environment.from_site(load_site(path))
+
+
+def utc_text(ns: int) -> str:
+    """A UTC label (int ns since 2000-01-01T12:00:00) as 2026-12-01T21:04:05Z."""
+    from ..core.timebase import format_instant
+
+    return format_instant(ns, 0) + "Z"
+
+
+def utc_instant(option: str, text: str) -> int:
+    """A UTC calendar time given on the command line, as int ns since 2000-01-01T12:00:00
+    (UTC labels); an ``InputError`` naming ``option`` and the value otherwise."""
+    from ..core.timebase import parse_instant
+
+    bare = text.strip()
+    bare = bare[:-1] if bare.upper().endswith("Z") else bare  # 21:00:00Z is UTC too
+    try:
+        return parse_instant(bare)
+    except (ValueError, OverflowError):
+        raise InputError(option, text, f"not a time; give {TIME_EXAMPLE} "
+                                       "(ISO 8601, UTC, seconds optional)") from None
+
+
+def positive_seconds(option: str, value: float) -> float:
+    """``value`` if it is a positive finite number of seconds, else an ``InputError``."""
+    if not value > 0 or value == float("inf"):
+        raise InputError(option, value, "must be a positive number of seconds")
+    return value

@@ -4,21 +4,24 @@ Each command module of this package exposes ``add_parser(subparsers)``, which
 declares its options and imports nothing heavy, and ``run(args) -> int``, which
 imports what the command needs when it runs; so ``turnstamp --help`` and small
 commands start fast. This module builds the parser from them and holds the one
-error handler: bad input from outside (``InputError``, a missing file) ends with
-one line on stderr naming the command (exit status 2), Ctrl-C with status 130,
-and our own bugs keep their traceback.
+error handler: bad input from outside (``InputError``, an unreadable file, a
+report that cannot be built, a file system refusal) ends with one line on stderr
+naming the command (exit status 2), Ctrl-C with status 130, and our own bugs keep
+their traceback.
 """
 
 from __future__ import annotations
 
 import argparse
+import functools
 import logging
 import sys
 
 from .. import __version__
-from ..errors import InputError
+from ..errors import ArrowFileError, InputError, ReportError
 from . import (
     bench,
+    check,
     demo,
     inspect_output,
     model,
@@ -32,10 +35,11 @@ from . import (
     template,
     watch,
 )
+from .common import HelpFormatter
 
 __all__ = ["COMMANDS", "build_parser", "main"]
 
-COMMANDS = (demo, run, simulate, tag, model, table, inspect_output, report, watch, stack,
+COMMANDS = (demo, run, check, simulate, tag, model, table, inspect_output, report, watch, stack,
             template, bench, schemas)
 """Command modules, in the order ``turnstamp --help`` lists them."""
 
@@ -48,7 +52,9 @@ def build_parser() -> argparse.ArgumentParser:
                     "photon-counting telescopes.")
     parser.add_argument("--version", action="version", version=f"turnstamp {__version__}")
     parser.add_argument("-v", "--verbose", action="store_true", help="log more")
-    subparsers = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    subparsers = parser.add_subparsers(  # every command's help states its defaults
+        dest="command", required=True, metavar="COMMAND",
+        parser_class=functools.partial(argparse.ArgumentParser, formatter_class=HelpFormatter))
     for command in COMMANDS:
         command.add_parser(subparsers)
     return parser
@@ -61,7 +67,7 @@ def main(argv: list[str] | None = None) -> int:
                         format="%(asctime)s %(levelname)s %(name)s: %(message)s")
     try:
         return args.run(args)
-    except (InputError, FileNotFoundError) as exc:
+    except (InputError, ArrowFileError, ReportError, OSError) as exc:  # theirs, not ours
         print(f"turnstamp {args.command}: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

@@ -6,10 +6,15 @@ __all__ = ["add_parser", "run"]
 
 
 def add_parser(subparsers) -> None:
-    p = subparsers.add_parser("report", help="night report (HTML + PNG) from an output folder")
-    p.add_argument("output_dir")
-    p.add_argument("--to", help="report folder (default OUTPUT_DIR/report)")
-    p.add_argument("--every", type=float, help="regenerate every SECONDS (page reloads itself)")
+    p = subparsers.add_parser(
+        "report", help="night report (HTML + PNG) from an output folder",
+        description="Build the night report of an output folder (the service's "
+                    "output.directory, live or finished, or the folder of a turnstamp tag "
+                    "output): one self-contained HTML page and each figure as a PNG.")
+    p.add_argument("output_dir", metavar="OUTPUT_DIR", help="the output folder to report on")
+    p.add_argument("--out-dir", metavar="DIR", help="report folder (default: OUTPUT_DIR/report)")
+    p.add_argument("--every", type=float, metavar="SECONDS",
+                   help="regenerate every SECONDS, the page reloading itself (default: once)")
     p.set_defaults(run=run)
 
 

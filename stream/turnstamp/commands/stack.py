@@ -14,7 +14,9 @@ def add_parser(subparsers) -> None:
     p = subparsers.add_parser("stack",
                               help="stack the statistics of several nights' output folders")
     p.add_argument("folders", nargs="+", help="output folders (their checkpoint.json)")
-    p.add_argument("--out", help="write the stacked state (JSON)")
+    p.add_argument("--out", metavar="FILE",
+                   help="write the stacked state to this JSON file (default: not written)")
+    p.add_argument("--force", action="store_true", help="overwrite --out if it exists")
     p.set_defaults(run=run)
 
 
@@ -24,6 +26,8 @@ def run(args) -> int:
     from ..core.timebinned import TimeBinnedMoments
     from ..service.checkpoint import read_checkpoint
 
+    if args.out and Path(args.out).exists() and not args.force:
+        raise InputError("--out", args.out, "exists; give --force to overwrite it")
     states, labels = [], []
     for folder in args.folders:
         checkpoint = read_checkpoint(Path(folder))

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from .common import add_site_option, add_table_cache_option
+
 __all__ = ["add_parser", "run"]
 
 _ORIGIN_HELP = ("what time_ns counts from: 2000-01-01T12:00:00, unix (1970-01-01), gps "
@@ -19,9 +21,7 @@ def add_parser(subparsers) -> None:
     p.add_argument("--model", action="append", required=True, metavar="FILE",
                    help="spin model file (TOML/JSON); repeat for several validity windows "
                         "(required)")
-    p.add_argument("--site", metavar="FILE",
-                   help="TOML with a [site] table, or a service configuration (required: "
-                        "no default, a wrong site shifts phases silently)")
+    add_site_option(p)
     p.add_argument("--time-scale", default="UTC", choices=["UTC", "TAI", "GPS", "TT"],
                    help="time scale of time_ns (default UTC)")
     p.add_argument("--time-origin", default="2000-01-01T12:00:00", metavar="ORIGIN",
@@ -34,9 +34,7 @@ def add_parser(subparsers) -> None:
                         "exists, unless --force")
     p.add_argument("--target", help="target name written to the archive (default: the "
                                      "model's target name)")
-    p.add_argument("--table-cache", metavar="DIR",
-                   help="folder for cached barycentre tables (default: none, tables built "
-                        "in memory)")
+    add_table_cache_option(p, None)
     p.add_argument("--force", action="store_true",
                    help="overwrite existing outputs (default: refuse)")
     p.add_argument("--json", action="store_true", help="print the summary as JSON on stdout "
@@ -53,16 +51,11 @@ def run(args) -> int:
     from ..assemble import Environment
     from ..config import load_site
     from ..core.timebase import Scale
-    from ..errors import InputError
     from ..files.inputs import load_spin_model
     from ..tagging.run import offline_target, tag_file
     from ..tagging.times import TimeConvention
     from ..views.progress import progress
 
-    if args.site is None:
-        raise InputError("--site", None, "a site must be given: a TOML file with a [site] "
-                         "table (name, latitude_deg, longitude_deg, height_m) or a service "
-                         "configuration; only the demo uses the demo site")
     convention = TimeConvention(args.time_origin, args.time_unit)
     setup = offline_target([load_spin_model(m) for m in args.model], args.target)
     env = Environment.from_site(load_site(args.site))

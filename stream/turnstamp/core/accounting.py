@@ -21,6 +21,12 @@ three ways again when the files are replayed after a crash:
 Invariant: ``events_received == events_tagged + events_filtered + events_rejected``
 (``reconciles()``). The counters are checkpointed whole (``to_state``), reasons
 included, so every count survives a restart.
+
+A tagged event is not always a good one: ``QualityCounts`` tallies, per target and
+per ``Quality`` flag, the archive rows tagged with a quality problem (outside the
+spin model's validity window above all: phase extrapolated, left out of the
+statistics). The pipeline counts them where it adds events to the statistics, so
+the same counts come back when archive rows are replayed after a crash.
 """
 
 from __future__ import annotations
@@ -31,8 +37,10 @@ from dataclasses import asdict, dataclass, field, fields
 import numpy as np
 
 from ..errors import RejectReason
+from .flags import Quality
 
-__all__ = ["ACCEPTED", "FeedResult", "MessageRecord", "Counters"]
+__all__ = ["ACCEPTED", "FeedResult", "MessageRecord", "Counters", "QualityCounts",
+           "QUALITY_WORDS", "EXCLUDED_FROM_STATISTICS"]
 
 ACCEPTED = "accepted"
 """Outcome of a message whose events were fed (otherwise the outcome is a reason)."""
@@ -41,6 +49,23 @@ _EARLIER_NAMES = {"received": "events_received", "tagged": "events_tagged",
                   "filtered": "events_filtered", "rejected": "events_rejected",
                   "by_reason": "rejected_by_reason"}
 """Key names of pipeline states saved before the counters were unified."""
+
+QUALITY_WORDS = {
+    "OUTSIDE_MODEL_VALIDITY": "outside the spin model's validity window (phase extrapolated, "
+                              "left out of the statistics)",
+    "LEAP_TABLE_EXPIRED": "after the leap-second table's expiry (a new leap second would be "
+                          "missed)",
+    "EARTH_ORIENTATION_PREDICTED": "with predicted Earth orientation (a few ns at most)",
+    "EARTH_ORIENTATION_HELD": "past the end of the Earth-orientation table (barycentric "
+                              "time off by up to ~1.4 µs)",
+    "CLOCK_CORRECTION_EXTRAPOLATED": "outside a clock-correction table (its end value held)",
+    "BINARY_NOT_CONVERGED": "with an unconverged binary emission time",
+    "BUILTIN_EPHEMERIS": "with erfa's built-in ephemeris (~15 µs rms)",
+    "ORBIT_TABLE_EXTRAPOLATED": "outside the orbit table (position extrapolated)",
+}
+"""Each ``Quality`` flag in words, after "N events tagged ..."."""
+EXCLUDED_FROM_STATISTICS = Quality.OUTSIDE_MODEL_VALIDITY
+"""Flags whose events the statistics leave out (``Pipeline.accumulate``)."""
 
 
 @dataclass
@@ -212,3 +237,62 @@ class Counters:
         values = {_EARLIER_NAMES.get(key, key): value for key, value in state.items()}
         values["rejected_by_reason"] = dict(values.get("rejected_by_reason", {}))
         return cls(**values)
+
+
+@dataclass
+class QualityCounts:
+    """Tagged events carrying a quality problem, per target and per ``Quality`` flag.
+
+    Attributes
+    ----------
+    by_target : dict of str to dict of str to int
+        Target name -> flag name -> archive rows of that target with the flag set.
+        An event with two flags counts under each.
+    """
+
+    by_target: dict[str, dict[str, int]] = field(default_factory=dict)
+
+    def add(self, target: str, quality: np.ndarray) -> None:
+        """Count the ``quality`` flags (uint32 array, one per tagged row) of ``target``."""
+        quality = np.asarray(quality, dtype=np.uint32)
+        present = int(np.bitwise_or.reduce(quality)) if quality.size else 0
+        if not present:  # one pass for the usual clean batch
+            return
+        counts = self.by_target.setdefault(target, {})
+        for flag in Quality:
+            if present & flag:
+                n = int(np.count_nonzero(quality & np.uint32(flag)))
+                counts[flag.name] = counts.get(flag.name, 0) + n
+
+    def of(self, target: str) -> dict[str, int]:
+        """Flag name -> count for one target (empty when it has no flagged events)."""
+        return dict(self.by_target.get(target, {}))
+
+    def excluded(self, target: str) -> int:
+        """Tagged events of ``target`` left out of its statistics (outside validity)."""
+        return self.by_target.get(target, {}).get(EXCLUDED_FROM_STATISTICS.name, 0)
+
+    def totals(self) -> dict[str, int]:
+        """Flag name -> count over every target."""
+        out: dict[str, int] = {}
+        for counts in self.by_target.values():
+            for name, n in counts.items():
+                out[name] = out.get(name, 0) + n
+        return out
+
+    def lines(self, target: str) -> list[str]:
+        """One sentence per flag of ``target``, the serious ones first."""
+        counts = self.of(target)
+        order = sorted(counts, key=lambda name: (name != EXCLUDED_FROM_STATISTICS.name, name))
+        return [f"{counts[name]:,} events of {target} tagged "
+                f"{QUALITY_WORDS.get(name, name.lower().replace('_', ' '))}" for name in order]
+
+    def to_state(self) -> dict:
+        """Plain JSON types, for a checkpoint."""
+        return {name: dict(counts) for name, counts in self.by_target.items()}
+
+    @classmethod
+    def from_state(cls, state: Mapping | None) -> QualityCounts:
+        """From ``to_state()`` (None or missing: no counts, as in older checkpoints)."""
+        return cls({str(name): {str(k): int(v) for k, v in counts.items()}
+                    for name, counts in (state or {}).items()})

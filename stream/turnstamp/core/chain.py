@@ -30,9 +30,8 @@ from typing import NamedTuple
 
 import numpy as np
 
-from .accounting import FeedResult
+from .accounting import EXCLUDED_FROM_STATISTICS, FeedResult
 from .batch import EventBatch, RejectCode, check_values, describe_rejects
-from .flags import Quality
 from .targets import Recipe, TargetSetup, cos_angular_distance
 from .timebase import ClockCorrection, LeapSecondTable, site_tt
 from .timebinned import TimeBinnedMoments, update_together
@@ -198,7 +197,7 @@ def recipe_rows(recipes: Sequence[Recipe], recipe_flags: np.ndarray,
     """Per recipe, the rows its statistics take: those with its bit set, except the
     ones tagged outside their model's validity. ``slice(None)`` when that is every
     row (no copy needed), None when none."""
-    usable = (quality & Quality.OUTSIDE_MODEL_VALIDITY) == 0
+    usable = (quality & EXCLUDED_FROM_STATISTICS) == 0
     everything = bool(usable.all())
     chosen: list[np.ndarray | slice | None] = []
     for bit in range(len(recipes)):

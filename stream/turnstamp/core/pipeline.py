@@ -27,11 +27,11 @@ same outputs (the statistics to float rounding).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
-from .accounting import Counters, FeedResult
+from .accounting import Counters, FeedResult, QualityCounts
 from .batch import EventBatch
 from .chain import ChainSettings, add_recipe_moments, tag_targets, time_base
 from .clock.chunks import ChunkOffset, chunk_offsets
@@ -85,6 +85,7 @@ class Pipeline:
                                    settings.latest_ns, settings.checked_columns)
         self.targets = {t.name: t for t in targets}
         self.counters = Counters()
+        self.quality = QualityCounts()  # tagged events with a quality problem, by flag
         self.moments: dict[str, list[TimeBinnedMoments]] = {}
         self.reservoirs: dict[str, Reservoir] = {}
         self.phase_reference: dict[str, str] = {}
@@ -130,9 +131,12 @@ class Pipeline:
         return result
 
     def accumulate(self, name: str, tt_ns, phase, weight, recipe_flags, quality, correction_s):
-        """Add tagged events to a target's statistics (``chain.add_recipe_moments``). Used
-        by ``feed`` and to replay archive rows after a restart."""
+        """Add tagged events to a target's statistics (``chain.add_recipe_moments``):
+        each recipe takes the rows with its bit set, except those tagged outside their
+        model's validity (counted in ``quality`` with every other flag). Used by
+        ``feed`` and to replay archive rows after a restart."""
         target = self.targets[name]
+        self.quality.add(name, quality)
         chosen = add_recipe_moments(self.moments[name], target.recipes, tt_ns, phase, weight,
                                     recipe_flags, quality)
         rows = chosen[target.clock_recipe]
@@ -229,6 +233,11 @@ class Pipeline:
                                frequency_spread_hz=float(np.ptp(apparent)) / 2)
             if verdict.kind in ("no_signal", "smeared", "insufficient_signal"):
                 verdict = self._refold(name, verdict)
+            excluded = self.quality.excluded(name)
+            if excluded:  # said first: "no signal" may only mean no usable events
+                verdict = replace(verdict, lines=[
+                    f"{excluded:,} events of {name} fell outside its spin model's validity "
+                    "window: not in this check.", *verdict.lines])
             out.append((name, target.recipes[target.clock_recipe].name, verdict, chunks))
         return out
 
@@ -257,6 +266,7 @@ class Pipeline:
         return {
             "version": STATE_VERSION,
             "counters": self.counters.to_state(),
+            "quality": self.quality.to_state(),
             "targets": {
                 name: {"phase_reference": self.phase_reference[name],
                        "recipes": [t.recipes[i].name for i in range(len(t.recipes))],
@@ -269,6 +279,7 @@ class Pipeline:
         start afresh; returns a note for each."""
         notes = []
         self.counters = Counters.from_state(state["counters"])
+        self.quality = QualityCounts.from_state(state.get("quality"))
         for name, saved in state.get("targets", {}).items():
             target = self.targets.get(name)
             problem = resume_problem(name, saved, None if target is None else (

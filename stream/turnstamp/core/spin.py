@@ -40,12 +40,18 @@ __all__ = [
     "ValidityWindow",
     "ExactDecimal",
     "spin_down_summary",
+    "stated_half_unit",
+    "digit_warnings",
     "MOMENT_OF_INERTIA_G_CM2",
+    "PHASE_DIGITS_LIMIT_CYCLES",
 ]
 
 MOMENT_OF_INERTIA_G_CM2 = 1e45  # canonical neutron star (Lorimer & Kramer 2005, ch. 3; from memory)
 SURFACE_FIELD_CONSTANT_G = 3.2e19  # B_s = 3.2e19 sqrt(P Pdot) gauss, conventional rounding
 JULIAN_YEAR_S = 31_557_600.0
+PHASE_DIGITS_LIMIT_CYCLES = Decimal("0.01")
+"""Phase uncertainty over the validity window (cycles) that the stated digits of the
+frequency and of each derivative may leave before ``digit_warnings`` warns."""
 _DAY = Decimal(86_400)
 _MJD_AT_EPOCH = Decimal("51544.5")
 
@@ -203,7 +209,9 @@ def spin_down_summary(model: SpinModel) -> dict[str, float | str | None]:
     characteristic age, surface dipole field and braking index (Lorimer & Kramer 2005,
     ch. 3; from memory), and the validity window.
 
-    Conventions: I = 1e45 g cm^2, B_s = 3.2e19 sqrt(P Pdot) G.
+    Conventions: I = 1e45 g cm^2, B_s = 3.2e19 sqrt(P Pdot) G. The spin-down power
+    -4 pi^2 I f fdot is negative for a pulsar spinning up (fdot > 0), which then has
+    no characteristic age or dipole field.
     """
     f = float(model.frequency_hz)
     derivatives = [float(d) for d in model.frequency_derivatives]
@@ -212,7 +220,7 @@ def spin_down_summary(model: SpinModel) -> dict[str, float | str | None]:
         "frequency_hz": f,
         "period_s": 1.0 / f,
         "period_derivative": -fdot / f**2,
-        "spin_down_power_erg_per_s": 4 * math.pi**2 * MOMENT_OF_INERTIA_G_CM2 * f * abs(fdot),
+        "spin_down_power_erg_per_s": -4 * math.pi**2 * MOMENT_OF_INERTIA_G_CM2 * f * fdot,
         "characteristic_age_yr": (-f / (2 * fdot) / JULIAN_YEAR_S) if fdot < 0 else None,
         "surface_dipole_field_gauss": (SURFACE_FIELD_CONSTANT_G * math.sqrt(-fdot / f**3))
         if fdot < 0 else None,
@@ -220,4 +228,45 @@ def spin_down_summary(model: SpinModel) -> dict[str, float | str | None]:
         "valid_from_mjd_tdb": str(model.validity.start_mjd_tdb),
         "valid_until_mjd_tdb": str(model.validity.end_mjd_tdb),
     }
+    return out
+
+
+def stated_half_unit(value: Decimal) -> Decimal:
+    """Half a unit in the last stated digit of ``value`` ("87.65" -> 0.005).
+
+    The digits are those written in the model file (an exact decimal keeps them;
+    a TOML float keeps its shortest repr, so trailing zeros are not counted).
+    """
+    return Decimal(5).scaleb(value.as_tuple().exponent - 1)
+
+
+def digit_warnings(model: SpinModel,
+                   limit_cycles: Decimal = PHASE_DIGITS_LIMIT_CYCLES) -> list[str]:
+    """Warnings for a frequency or derivative stated with too few digits.
+
+    The k-th derivative of the frequency (k = 0: the frequency itself) known to half
+    a unit in its last digit, d_k, moves phase by up to d_k T^(k+1) / (k+1)! over a
+    validity window of length T (s). A warning names each term for which that
+    exceeds ``limit_cycles`` (0.01 cycles: common practice for folding).
+
+    Returns
+    -------
+    list of str
+        One sentence per term, naming the field, the value as written, the phase
+        uncertainty it leaves (cycles) and the window length (days).
+    """
+    window_s = (model.validity.end_mjd_tdb - model.validity.start_mjd_tdb) * _DAY
+    terms = [("frequency_hz", model.frequency_hz)] + [
+        (f"frequency_derivatives[{k}]", d) for k, d in enumerate(model.frequency_derivatives)]
+    out = []
+    for order, (field, value) in enumerate(terms):
+        if value.is_zero():
+            continue  # a term written as zero is absent, not imprecise
+        cycles = stated_half_unit(value) * window_s ** (order + 1) / math.factorial(order + 1)
+        if cycles > limit_cycles:
+            out.append(
+                f"{model.model_id}: {field} = {value} is stated to ±{stated_half_unit(value)} "
+                f"(half its last digit): up to {float(cycles):.3g} cycles of phase over the "
+                f"{float(window_s / _DAY):g}-day validity window (limit {limit_cycles} cycles); "
+                "give more digits, as a string to keep every one")
     return out

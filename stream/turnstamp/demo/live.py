@@ -72,6 +72,8 @@ checkpoint_every_s = 5.0
 
 
 def _status_line(status: dict) -> str:
+    from ..views.live.fields import sigma_text
+
     c = status.get("counters", {})
     parts = [f"{status.get('events_per_s', 0):8,.0f} ev/s",
              f"received {c.get('events_received', 0):,}"]
@@ -79,7 +81,8 @@ def _status_line(status: dict) -> str:
         for recipe in target.get("recipes", [])[:1]:
             cumulative = recipe.get("windows", {}).get("cumulative", {})
             sigma = cumulative.get("sigma")
-            parts.append(f"{target['name']} {'-' if sigma is None else f'{sigma:5.1f}'}σ")
+            shown = sigma_text(sigma, 1)
+            parts.append(f"{target['name']} {shown}{'σ' if shown[-1].isdigit() else ''}")
         clock = target.get("clock")
         if clock:
             parts.append(f"clock {clock['status']} ({clock['kind']})")
@@ -89,8 +92,8 @@ def _status_line(status: dict) -> str:
 def run_demo(out: Path, seconds: float = 60.0, rate: float = 20_000.0,
              fault: str = "none") -> int:
     """Run the demo for ``seconds`` at ``rate`` events/s (optionally with a clock
-    ``fault``), writing into ``out``; returns the exit status (1: the service failed or
-    the accounting did not reconcile)."""
+    ``fault``), writing into ``out``; returns the exit status (1: the service or the
+    simulator failed, or the accounting did not reconcile)."""
     out = Path(out).resolve()
     if out.exists() and any(out.glob("*.arrow")):
         stamp = time.strftime("%Y%m%dT%H%M%S")
@@ -103,25 +106,60 @@ def run_demo(out: Path, seconds: float = 60.0, rate: float = 20_000.0,
           f"millisecond pulsar Lantern,\nseen by the invented Kestrel array at Corvid Ridge; "
           f"{rate:,.0f} events/s; fault injected: {fault}.")
     print(f"configuration: {config}")
+    print(f"watch it live: turnstamp watch --endpoint tcp://127.0.0.1:{publish}   "
+          f"(or: turnstamp watch --folder {out})")
+    log_lines: list[str] = []
+    service = _start_service(config, out / "status.json", log_lines)
+    if service is None:
+        return 1
+    failures: list[BaseException] = []
+    sender = threading.Thread(target=_send, args=(f"tcp://127.0.0.1:{intake}", seconds, rate,
+                                                  fault, failures), daemon=True)
+    sender.start()
+    _follow(sender, out / "status.json")
+    time.sleep(2.5)  # the last updates of the service (1 s cadence)
+    service.send_signal(signal.SIGINT)
+    try:
+        service.wait(timeout=60)
+    except subprocess.TimeoutExpired:
+        service.kill()
+    if failures:
+        print(f"turnstamp demo: the simulator failed: {failures[0]}", file=sys.stderr)
+        return 1
+    return _summary(out, log_lines)
+
+
+def _start_service(config: Path, status_file: Path, log_lines: list[str]):
+    """``turnstamp run CONFIG`` as a child process, once it has written its status (None,
+    after printing its log, when it did not start within a minute)."""
     service = subprocess.Popen([sys.executable, "-m", "turnstamp", "run", str(config)],
                                stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
-    log_lines: list[str] = []
     threading.Thread(target=lambda: log_lines.extend(service.stdout), daemon=True).start()
-    status_file = out / "status.json"
     deadline = time.time() + 60
     while not status_file.exists():
         if service.poll() is not None or time.time() > deadline:
             print("the service did not start:\n" + "".join(log_lines), file=sys.stderr)
-            return 1
+            if service.poll() is None:
+                service.kill()
+            return None
         time.sleep(0.2)
+    return service
 
+
+def _send(endpoint: str, seconds: float, rate: float, fault: str,
+          failures: list[BaseException]) -> None:
+    """The simulator's thread: publish the night; an exception is kept for the caller."""
     from .simulator import publish_night
 
-    sender = threading.Thread(target=publish_night, args=(f"tcp://127.0.0.1:{intake}",),
-                              kwargs=dict(seconds=seconds, rate=rate, pulsed_fraction=0.006,
-                                          fault=fault, seed=1, source="kestrel-array",
-                                          out=None), daemon=True)
-    sender.start()
+    try:
+        publish_night(endpoint, seconds=seconds, rate=rate, pulsed_fraction=0.006,
+                      fault=fault, seed=1, source="kestrel-array", report=False)
+    except Exception as exc:  # reported by run_demo, which then fails
+        failures.append(exc)
+
+
+def _follow(sender: threading.Thread, status_file: Path) -> None:
+    """A status line every second while the simulator sends."""
     interactive = sys.stdout.isatty()
     last = 0.0
     while sender.is_alive():
@@ -134,15 +172,8 @@ def run_demo(out: Path, seconds: float = 60.0, rate: float = 20_000.0,
                 continue
             print(("\r" + line.ljust(110)) if interactive else line, end="" if interactive
                   else "\n", flush=True)
-    time.sleep(2.5)  # the last updates of the service (1 s cadence)
-    service.send_signal(signal.SIGINT)
-    try:
-        service.wait(timeout=60)
-    except subprocess.TimeoutExpired:
-        service.kill()
     if interactive:
         print()
-    return _summary(out, log_lines)
 
 
 def _summary(out: Path, log_lines: list[str]) -> int:

@@ -27,7 +27,7 @@ if TYPE_CHECKING:
     from .loop import Service
 
 __all__ = ["STATUS_FILE", "STATUS_FORMAT", "Activity", "status_document", "table_warnings",
-           "json_text"]
+           "quality_warnings", "json_text"]
 
 STATUS_FILE = "status.json"
 STATUS_FORMAT = "turnstamp.status"
@@ -85,6 +85,7 @@ def status_document(service: Service, state: str) -> dict:
         "endpoints": service.endpoints,
         "counters": service.counters.totals(),
         "rejected_by_reason": dict(service.counters.rejected_by_reason),
+        "tagged_with_problems": pipeline.quality.totals(),
         "events_per_s": service.activity.events_per_s(now),
         "sources": service.admission.source_status(),
         "targets": _targets(service), "trials": pipeline.trials,
@@ -92,7 +93,8 @@ def status_document(service: Service, state: str) -> dict:
         "tables": {n: [t.tagger.table.start_ns, t.tagger.table.stop_ns]
                    for n, t in pipeline.targets.items()},
         "notes": list(service.notes)[-SHOWN:],
-        "warnings": list(service.warnings)[-SHOWN:] + table_warnings(pipeline, service.env),
+        "warnings": list(service.warnings)[-SHOWN:] + quality_warnings(pipeline)
+        + table_warnings(pipeline, service.env),
     }
 
 
@@ -117,13 +119,30 @@ def _targets(service: Service) -> list[dict]:
                             "profile": {"counts": profile.get("counts", []),
                                         "errors": profile.get("errors", [])}})
         entry = {"name": name, "model_ids": setup.tagger.model_ids,
-                 "frequency_hz": pipeline.frequency_hz(name), "recipes": recipes}
+                 "frequency_hz": pipeline.frequency_hz(name), "recipes": recipes,
+                 "tagged_with_problems": pipeline.quality.of(name),
+                 "excluded_from_statistics": pipeline.quality.excluded(name)}
         if name in clock:
             recipe, verdict = clock[name]
             entry["clock"] = {"recipe": recipe, "status": verdict.status,
                               "kind": verdict.kind, "lines": list(verdict.lines)}
         targets.append(entry)
     return targets
+
+
+def quality_warnings(pipeline: Pipeline) -> list[str]:
+    """Targets with events tagged outside their spin models' validity windows."""
+    out = []
+    for name, setup in pipeline.targets.items():
+        excluded = pipeline.quality.excluded(name)
+        if excluded:
+            windows = ", ".join(f"{c.model_id} MJD {c.model.validity.start_mjd_tdb} to "
+                                f"{c.model.validity.end_mjd_tdb} TDB"
+                                for c in setup.tagger.calculators)
+            out.append(f"{name}: {excluded:,} events outside the validity window of its spin "
+                       f"model ({windows}): phases extrapolated and left out of the "
+                       "statistics; load a model valid for these dates")
+    return out
 
 
 def table_warnings(pipeline: Pipeline, env: Environment) -> list[str]:

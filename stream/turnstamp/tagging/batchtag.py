@@ -22,13 +22,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import NamedTuple
 
-import numpy as np
 import pyarrow as pa
 
 from ..core.accounting import FeedResult
 from ..core.batch import MISSING_TIME, EventBatch
 from ..core.chain import ChainSettings, add_recipe_moments, tag_targets, time_base
-from ..core.flags import Quality
 from ..core.moments import DEFAULT_BINS, MAX_HARMONICS
 from ..core.targets import TargetSetup
 from ..core.timebase import NS_PER_S, Scale
@@ -38,7 +36,7 @@ from ..wire.columns import batch_from_record
 from .tables import DayTables
 from .times import PlausibleRange, TimeConvention, check_times, to_instants
 
-__all__ = ["StatisticsShape", "TagJob", "TaggedBatch", "tag_record", "quality_counts"]
+__all__ = ["StatisticsShape", "TagJob", "TaggedBatch", "tag_record"]
 
 
 class StatisticsShape(NamedTuple):
@@ -153,10 +151,3 @@ def tag_record(record: pa.RecordBatch, job: TagJob, sequence: int,
         add_recipe_moments(partials, job.setup.recipes, columns["site_tt_ns"], columns["phase"],
                            columns["weight"], columns["recipe_flags"], columns["quality_flags"])
     return TaggedBatch(batch, result, partials)
-
-
-def quality_counts(quality_flags: np.ndarray) -> dict[str, int]:
-    """Events per ``Quality`` flag set (flags no event has are left out)."""
-    present = int(np.bitwise_or.reduce(quality_flags)) if quality_flags.size else 0
-    return {flag.name or str(flag.value): int(np.count_nonzero(quality_flags & flag))
-            for flag in Quality if present & flag}

@@ -22,7 +22,7 @@ from pathlib import Path
 import pyarrow as pa
 
 from ..assemble import Environment, phase_calculators_for, target_setup
-from ..core.accounting import MessageRecord
+from ..core.accounting import MessageRecord, QualityCounts
 from ..core.chain import ChainSettings
 from ..core.spin import SpinModel
 from ..core.targets import TargetSetup
@@ -30,7 +30,7 @@ from ..core.timebase import NS_PER_DAY, Scale, parse_instant
 from ..files import schemas
 from ..files.ledger import Ledger
 from ..files.outputs import archive_table, rejects_table
-from .batchtag import TagJob, quality_counts, tag_record
+from .batchtag import TagJob, tag_record
 from .inputs import READ_ROWS, open_events
 from .outputs import (
     BackgroundWrites,
@@ -107,7 +107,7 @@ class _Run:
         self.job = tag_job(setup, env, scale, table_cache, label, source, convention)
         tables = self.job.tables
         self.totals = {r.name: self.job.statistics.moments() for r in setup.recipes}
-        self.quality: Counter[str] = Counter()
+        self.quality = QualityCounts()
         self.rejected: Counter[tuple[str, str]] = Counter()
         self.model_ids = setup.tagger.model_ids
         self.metadata = {**env.provenance(), "target": setup.name,
@@ -125,7 +125,7 @@ class _Run:
         if columns is not None:
             archive.append(archive_table(columns, self.job.source, sequence, name,
                                          self.model_ids))
-            self.quality.update(quality_counts(columns["quality_flags"]))
+            self.quality.add(name, columns["quality_flags"])
         rejects = []
         if result.rejected:
             rejects.append(rejects_table(tagged.batch, result, received_utc_ns=0,
@@ -142,7 +142,7 @@ class _Run:
                           counters.events_filtered, counters.events_rejected, output, rejects,
                           time.perf_counter() - started, self.job.setup.name,
                           dict(counters.rejected_by_reason), dict(self.rejected),
-                          dict(self.quality), self.totals)
+                          self.quality.of(self.job.setup.name), self.totals)
 
 
 def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment, scale: Scale,

@@ -13,23 +13,11 @@ import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from ..core.accounting import QualityCounts
 from ..core.timebinned import TimeBinnedMoments
 
-__all__ = ["TagSummary", "QUALITY_WORDS", "recipe_lines"]
+__all__ = ["TagSummary", "recipe_lines"]
 
-QUALITY_WORDS = {  # the most consequential first
-    "OUTSIDE_MODEL_VALIDITY": "outside the spin model's validity window (phases "
-                              "extrapolated; left out of the statistics)",
-    "BUILTIN_EPHEMERIS": "with erfa's built-in ephemeris (~15 us rms)",
-    "EARTH_ORIENTATION_HELD": "past the end of the Earth-orientation table (up to ~1.4 us "
-                              "off; give a newer table)",
-    "LEAP_TABLE_EXPIRED": "after the expiry of the leap-second table",
-    "CLOCK_CORRECTION_EXTRAPOLATED": "outside a clock-correction table (its end value held)",
-    "ORBIT_TABLE_EXTRAPOLATED": "outside the orbit table",
-    "BINARY_NOT_CONVERGED": "with the binary emission time not converged to 1 ps",
-    "EARTH_ORIENTATION_PREDICTED": "with predicted Earth orientation (a few ns at most)",
-}
-"""What each archive quality flag means, as the summary says it."""
 
 
 
@@ -57,8 +45,8 @@ class TagSummary:
                f"{self.tagged:,} tagged, {self.filtered:,} filtered, {self.rejected:,} rejected"]
         for (reason, detail), count in sorted(self.rejected_details.items()):
             out.append(f"  rejected ({reason}), {detail}: {count:,}")
-        for flag in sorted(self.quality, key=lambda f: (list(QUALITY_WORDS) + [f]).index(f)):
-            out.append(f"  {self.quality[flag]:,} tagged {QUALITY_WORDS.get(flag, flag)}")
+        out += [f"  {line}" for line in
+                QualityCounts({self.target: self.quality}).lines(self.target)]
         if self.tagged == 0:
             out.append("warning: no event was tagged")
         if self.output is not None:

@@ -28,6 +28,8 @@ __all__ = [
     "last_sequence",
     "window_labels",
     "ascii_text",
+    "problems_text",
+    "unusable_text",
 ]
 
 UNKNOWN = "-"
@@ -115,3 +117,38 @@ def ascii_text(text: str) -> str:
     if text.isascii():
         return text
     return "".join(c if c.isascii() else _TO_ASCII.get(c, "?") for c in text)
+
+
+_SHORT_PROBLEM = {"OUTSIDE_MODEL_VALIDITY": "outside model validity (not in statistics)",
+                  "EARTH_ORIENTATION_PREDICTED": "Earth orientation predicted",
+                  "EARTH_ORIENTATION_HELD": "Earth orientation held",
+                  "LEAP_TABLE_EXPIRED": "leap table expired",
+                  "CLOCK_CORRECTION_EXTRAPOLATED": "clock correction extrapolated",
+                  "BINARY_NOT_CONVERGED": "binary not converged",
+                  "BUILTIN_EPHEMERIS": "built-in ephemeris",
+                  "ORBIT_TABLE_EXTRAPOLATED": "orbit table extrapolated"}
+"""Short words for the ``Quality`` flags counted in ``tagged_with_problems``."""
+
+
+def problems_text(status: dict) -> str | None:
+    """"tagged with a problem: N outside model validity (...), ..." or None.
+
+    The benign EARTH_ORIENTATION_PREDICTED (a few ns) is left out of this line."""
+    counts = {k: v for k, v in mapping(status.get("tagged_with_problems")).items()
+              if is_count(v) and v and k != "EARTH_ORIENTATION_PREDICTED"}
+    if not counts:
+        return None
+    order = sorted(counts, key=lambda k: (k != "OUTSIDE_MODEL_VALIDITY", k))
+    return "tagged with a problem: " + ", ".join(
+        f"{count_text(counts[k])} {_SHORT_PROBLEM.get(k, k.lower())}" for k in order)
+
+
+def unusable_text(target: dict, short: bool = False) -> str | None:
+    """Why a target's statistics hold no event although events were tagged, or None
+    (``short``: for a narrow table cell)."""
+    excluded = target.get("excluded_from_statistics")
+    if not is_count(excluded) or not excluded:
+        return None
+    if short:
+        return f"{count_text(excluded)} outside validity"
+    return f"none usable: {count_text(excluded)} outside model validity"

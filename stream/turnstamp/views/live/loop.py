@@ -150,7 +150,8 @@ def watch_main(args) -> int:
     Parameters
     ----------
     args : argparse.Namespace
-        ``endpoint`` or ``folder`` (exactly one), ``once``, ``ascii``.
+        ``endpoint`` or ``folder`` (exactly one), ``once``, ``ascii``, and ``wait``
+        (with ``once``: seconds to wait for a first status).
 
     Returns
     -------
@@ -171,4 +172,5 @@ def watch_main(args) -> int:
         return 2
     blocks = False if getattr(args, "ascii", False) else None
     return run_watch(endpoint=endpoint or None, folder=folder or None,
-                     once=bool(getattr(args, "once", False)), blocks=blocks)
+                     once=bool(getattr(args, "once", False)), blocks=blocks,
+                     timeout_s=getattr(args, "wait", None))

@@ -29,8 +29,10 @@ from .fields import (
     last_sequence,
     mapping,
     number_text,
+    problems_text,
     sigma_text,
     time_text,
+    unusable_text,
     window_labels,
 )
 from .text import BLOCKS, bar_heights
@@ -153,6 +155,9 @@ def _totals_panel(status: dict) -> Panel:
     if sources:
         lines.append(_one_line("; ".join(_source_text(name, mapping(s))
                                          for name, s in sorted(sources.items()))))
+    problems = problems_text(status)
+    if problems:
+        lines.append(Text(problems, style="bold yellow", no_wrap=True, overflow="ellipsis"))
     started = status.get("started_utc")
     return Panel(Group(*lines), title=_title(status), title_align="left",
                  subtitle=f"started {started}" if started else None, subtitle_align="right",
@@ -199,8 +204,9 @@ def _targets_table(targets: list[dict]) -> Table:
     for target in targets:
         labels = _target_labels(target)
         index = 0
+        unusable = unusable_text(target, short=True)
         for recipe in (r for r in target.get("recipes") or [] if isinstance(r, dict)):
-            for row in _recipe_rows(recipe):
+            for row in _recipe_rows(recipe, unusable):
                 table.add_row(labels[index] if index < len(labels) else "", *row)
                 index += 1
         if index == 0:
@@ -216,7 +222,7 @@ def _target_labels(target: dict) -> list[Text]:
     return labels
 
 
-def _recipe_rows(recipe: dict) -> list[list]:
+def _recipe_rows(recipe: dict, unusable: str | None = None) -> list[list]:
     """Rows (without the target column) of one recipe: one per window, at least one."""
     windows = mapping(recipe.get("windows"))
     labels = [k for k in window_labels(windows) if isinstance(windows[k], dict)] or [None]
@@ -227,6 +233,7 @@ def _recipe_rows(recipe: dict) -> list[list]:
         window = windows[label] if label is not None else {}
         events = window.get("events") if label is not None else recipe.get("events")
         profile = (ProfileRow(counts, len(labels), index) if counts
+                   else Text(unusable, style="bold yellow") if index == 0 and unusable
                    else Text("no events yet", style="dim") if index == 0
                    and recipe.get("profile") is not None else "")
         rows.append([str(names[index]) if index < len(names) else "", label or "-",

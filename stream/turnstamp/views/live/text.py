@@ -18,8 +18,10 @@ from .fields import (
     last_sequence,
     mapping,
     number_text,
+    problems_text,
     sigma_text,
     time_text,
+    unusable_text,
     window_labels,
 )
 
@@ -190,6 +192,9 @@ def _totals(status: dict) -> list[str]:
     if reasons:
         lines.append("rejected: " + ", ".join(f"{k} {count_text(v)}"
                                               for k, v in sorted(reasons.items())))
+    problems = problems_text(status)
+    if problems:
+        lines.append(problems)
     sources = mapping(status.get("sources"))
     if sources:
         lines.append("sources  " + "; ".join(_source_text(name, mapping(s))
@@ -211,14 +216,16 @@ def _target_lines(target: dict, width: int, glyphs: _Glyphs, rows: int) -> list[
     if target.get("model_ids"):
         head += "   models " + ", ".join(str(m) for m in target["model_ids"])
     lines = [head]
+    unusable = unusable_text(target)
     for recipe in target.get("recipes") or []:
         if isinstance(recipe, dict):
-            lines += _recipe_lines(recipe, width, glyphs, rows)
+            lines += _recipe_lines(recipe, width, glyphs, rows, unusable)
     lines += _clock_lines(target.get("clock"), glyphs)
     return lines
 
 
-def _recipe_lines(recipe: dict, width: int, glyphs: _Glyphs, rows: int) -> list[str]:
+def _recipe_lines(recipe: dict, width: int, glyphs: _Glyphs, rows: int,
+                  unusable: str | None = None) -> list[str]:
     weighting = "weighted" if recipe.get("weighted") else "unweighted"
     rate = recipe.get("events_per_s")
     lines = [f"  recipe {recipe.get('name', '?')} ({weighting}): "
@@ -235,7 +242,7 @@ def _recipe_lines(recipe: dict, width: int, glyphs: _Glyphs, rows: int) -> list[
         lines += ["    " + bar for bar in profile_bars(counts, rows=rows, width=width - 6,
                                                        blocks=glyphs.unicode)]
     elif recipe.get("profile") is not None:
-        lines.append("    profile: no events yet")
+        lines.append(f"    profile: {unusable or 'no events yet'}")
     return lines
 
 

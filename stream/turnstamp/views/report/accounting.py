@@ -53,7 +53,11 @@ def accounting_data(night: NightFolder, archive: ArchiveSummary) -> dict:
             "rejected_in_messages": rejects["in_messages"],
             "status_counters": status_numbers,
             "status_rejected_by_reason": (night.status or {}).get("rejected_by_reason") or {},
-            "archive_rows_by_target": dict(archive.rows_by_target), "checks": checks,
+            "archive_rows_by_target": dict(archive.rows_by_target),
+            "tagged_with_problems": {t: archive.quality.of(t) for t in archive.rows_by_target
+                                     if archive.quality.of(t)},
+            "problem_lines": [line for t in sorted(archive.rows_by_target)
+                              for line in archive.quality.lines(t)], "checks": checks,
             "reconciles": all(c["ok"] for c in checks)}
 
 

@@ -67,6 +67,12 @@ def build_report(output_dir: Path, report_dir: Path | None = None, *,
     night = load_night(output_dir)
     report_dir.mkdir(parents=True, exist_ok=True)
     content = gather(night)
+    for target in content.targets:
+        excluded = content.archive.quality.excluded(target)
+        if excluded:
+            night.notes.append(f"{target}: {excluded:,} events were tagged outside the validity "
+                               "window of its spin model: they are left out of the profile, "
+                               "the phase-time map, the significance and the clock check.")
     advance(1, total=len(content.targets) + 2)
     figures: list[dict] = []
     sections: list[str] = []

@@ -1,4 +1,4 @@
-"""``turnstamp report OUTPUT_DIR [--to DIR] [--every SECONDS]``: build the report once,
+"""``turnstamp report OUTPUT_DIR [--out-dir DIR] [--every SECONDS]``: build the report once,
 or again and again while a night goes on (the page reloads itself at the same pace).
 
 With ``--every`` a terminal shows a progress bar while the report is built and
@@ -20,12 +20,12 @@ __all__ = ["report_main"]
 
 
 def report_main(args) -> int:
-    """``turnstamp report OUTPUT_DIR [--to DIR] [--every SECONDS]``.
+    """``turnstamp report OUTPUT_DIR [--out-dir DIR] [--every SECONDS]``.
 
     Parameters
     ----------
     args : argparse.Namespace
-        ``output_dir``; optional ``to`` (report folder) and ``every`` (seconds).
+        ``output_dir``; optional ``out_dir`` (report folder) and ``every`` (seconds).
 
     Returns
     -------
@@ -38,7 +38,7 @@ def report_main(args) -> int:
         print(f"turnstamp report: {problem}", file=sys.stderr)
         return 2
     folder = Path(args.output_dir)
-    report_dir = Path(args.to) if getattr(args, "to", None) else None
+    report_dir = Path(args.out_dir) if getattr(args, "out_dir", None) else None
     every = getattr(args, "every", None)
     if every is None:
         try:
@@ -64,8 +64,12 @@ def _problem(args) -> str | None:
     every = getattr(args, "every", None)
     if every is not None and not every > 0:
         return f"--every {every}: must be a positive number of seconds"
-    if not Path(args.output_dir).is_dir():
-        return f"{args.output_dir}: no such output folder"
+    folder = Path(args.output_dir)
+    if folder.is_file():
+        return (f"{folder} is a file; give the output folder that holds it "
+                f"({folder.parent})")
+    if not folder.is_dir():
+        return f"{folder}: no such output folder"
     return None
 
 

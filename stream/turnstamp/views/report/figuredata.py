@@ -24,10 +24,19 @@ __all__ = [
     "significance_data",
     "clock_data",
     "phase_time_map_data",
+    "final_sigma",
+    "DETECTED_SIGMA",
 ]
 
 
 _MAX_PHASE_TIME_MAP_ROWS = 64
+DETECTED_SIGMA = 3.0
+"""From this H-test σ (before trials, all data so far) a target counts as pulsing: its
+harmonic estimate, template overlay and √t reference are drawn (3σ: common practice
+for "evidence"); below it the figures show the data and say that nothing is detected."""
+_FULL_ROW = 0.9
+"""Phase-time map rows with at least this fraction of their time covered by data set
+the colour scale (the partial first and last rows do not)."""
 
 
 def finite(value) -> float | None:
@@ -204,10 +213,19 @@ def significance_data(target, recipe, table: pa.Table | None, grid: Grid | None,
         t = (cumulative["data_until_tt_ns"] - start_ns) / NS_PER_S
         y = cumulative["h_sigma"]
         ok = (t > 0) & np.isfinite(y) & (y > 0)
-        if ok.sum() >= 2:
+        if ok.sum() >= 2 and (final_sigma(cumulative) or 0.0) >= DETECTED_SIGMA:
             scale = float(np.sum(y[ok] * np.sqrt(t[ok])) / np.sum(t[ok]))
             fit = {"start_tt_ns": start_ns, "sigma_per_sqrt_s": scale}
     return {"source": source, "windows": windows, "sqrt_t_fit": fit}
+
+
+def final_sigma(series: dict | None) -> float | None:
+    """The last finite H-test σ (before trials) of a significance series, or None."""
+    if not series:
+        return None
+    values = np.asarray(series.get("h_sigma", []), float)
+    values = values[np.isfinite(values)]
+    return float(values[-1]) if values.size else None
 
 
 def clock_data(row: dict | None, hours: UtcHours | None) -> dict | None:
@@ -239,8 +257,37 @@ def clock_data(row: dict | None, hours: UtcHours | None) -> dict | None:
         "sigma_us": sigma * to_us if to_us else sigma * np.nan, "detected": detected,
         "fitted_offset_us": finite(verdict.get("offset_us")),
         "step_time_ns": verdict.get("step_time_ns"),
+        "step_time_utc_hours": (float(hours(np.int64(verdict["step_time_ns"]))[0])
+                                if hours and verdict.get("step_time_ns") is not None else None),
+        "step_levels_us": _step_levels(verdict, to_us),
+        "drift_line": _drift_line(verdict, to_us, mid, hours),
         "computed_at_utc_ns": row.get("computed_at_utc_ns"),
     }
+
+
+def _step_levels(verdict: dict, to_us: float | None) -> list[float] | None:
+    """Offsets before and after a step (µs), when the verdict is a step."""
+    step = verdict.get("step") if verdict.get("kind") == "step" else None
+    if not isinstance(step, dict) or not to_us:
+        return None
+    before, after = finite(step.get("before_cycles")), finite(step.get("after_cycles"))
+    return None if before is None or after is None else [before * to_us, after * to_us]
+
+
+def _drift_line(verdict: dict, to_us: float | None, mid: np.ndarray,
+                hours: UtcHours | None) -> dict | None:
+    """The fitted drift over the chunks' span, when the verdict is a drift: UTC hours and
+    offsets (µs) at both ends."""
+    drift, reference = verdict.get("drift"), verdict.get("reference_ns")
+    if (verdict.get("kind") != "drift" or not isinstance(drift, dict) or reference is None
+            or not to_us or hours is None or not mid.size):
+        return None
+    offset, rate = finite(drift.get("offset_cycles")), finite(drift.get("rate_cycles_per_s"))
+    if offset is None or rate is None:
+        return None
+    ends = np.array([mid.min(), mid.max()], np.int64)
+    cycles = offset + rate * (ends - int(reference)) / NS_PER_S
+    return {"utc_hours": hours(ends), "offset_us": cycles * to_us}
 
 
 def phase_time_map_data(grid: Grid | None, hours: UtcHours | None) -> dict | None:
@@ -255,7 +302,27 @@ def phase_time_map_data(grid: Grid | None, hours: UtcHours | None) -> dict | Non
     for cell in cells:
         image[(cell - first) // group] += grid.hist[cell]
     edges_ns = (first + np.arange(rows + 1) * group) * grid.cell_ns + GRID_ORIGIN_NS
+    exposure = _row_exposure(edges_ns, grid.first_ns, grid.last_ns)
     return {"counts": image, "time_edges_tt_ns": edges_ns, "time_edges_utc_hours":
             hours(edges_ns), "bins": grid.bins, "total": float(image.sum()),
             "rows": grid.rows, "weighted": grid.weighted,
-            "row_seconds": group * grid.cell_ns // NS_PER_S}
+            "row_seconds": group * grid.cell_ns // NS_PER_S, "row_exposure": exposure,
+            "colour_range": _colour_range(image, exposure)}
+
+
+def _row_exposure(edges_ns: np.ndarray, first_ns: int | None, last_ns: int | None):
+    """Fraction of each row's time between the first and the last event."""
+    if first_ns is None or last_ns is None:
+        return np.ones(edges_ns.size - 1)
+    lo = np.maximum(edges_ns[:-1], first_ns)
+    hi = np.minimum(edges_ns[1:], last_ns)
+    return np.clip((hi - lo) / np.diff(edges_ns).astype(float), 0.0, 1.0)
+
+
+def _colour_range(image: np.ndarray, exposure: np.ndarray) -> list[float]:
+    """Colour limits from the rows whose time is (nearly) all covered: a partial first
+    or last row, with few events, does not stretch the scale."""
+    full = image[exposure >= _FULL_ROW]
+    values = full if full.size else image
+    low, high = (float(v) for v in np.percentile(values, [0.5, 99.5]))
+    return [low, high if high > low else low + 1.0]

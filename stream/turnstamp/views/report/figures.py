@@ -10,6 +10,7 @@ import numpy as np
 from ...core.timebase import NS_PER_S
 from ...errors import ReportError
 from .timegrid import UtcHours
+from .utcaxis import utc_axis
 
 __all__ = [
     "OKABE_ITO",
@@ -78,6 +79,43 @@ def _frame(fig, width_in: float, height_in: float, *, left=0.85, right=0.3, top=
                         hspace=hgap, wspace=wgap)
 
 
+def _harmonics(n: int) -> str:
+    return f"{n} harmonic{'s' if n != 1 else ''}"
+
+
+def _profile_panel(ax, target: str, recipe: str, d: dict) -> None:
+    bins = d["bins"]
+    centres = (np.arange(2 * bins) + 0.5) / bins
+    counts = np.tile(d["counts"], 2)
+    errors = np.tile(d["errors"], 2)
+    ax.stairs(counts, np.arange(2 * bins + 1) / bins, baseline=None, color=_SERIES[0],
+              linewidth=1.3, label="weighted counts" if d["weighted"] else "events")
+    ax.errorbar(centres, counts, yerr=errors, fmt="none", ecolor=_SERIES[0],
+                elinewidth=1, capsize=0, label="1σ error")
+    pulsed = d.get("pulsed", True)
+    if d["fourier"] is not None and pulsed:
+        ax.plot(d["fine_phase"], d["fourier"], color=_SERIES[1], linewidth=1.6,
+                label=f"Fourier estimate\n({_harmonics(d['harmonics'])})")
+    if d.get("background_per_bin") is not None and pulsed:
+        ax.axhline(d["background_per_bin"], color=OKABE_ITO["black"], linestyle=":",
+                   linewidth=1.3, label="unpulsed level")
+    if d["template_curve"] is not None and pulsed:
+        ax.plot(d["fine_phase"], d["template_curve"], color=_SERIES[2], linewidth=1.4,
+                linestyle="--", label=f"template, shifted\n{d['template_shift_cycles']:+.4f} "
+                "cycles")
+    if not pulsed:
+        ax.plot([], [], " ", label=f"no pulsation detected\n(H-test {d['detected_sigma']:.1f}σ"
+                                   f" < {d['detection_sigma']:g}σ)")
+    ax.set_xlim(0, 2)
+    ax.set_xlabel("rotational phase (cycles; two cycles shown)")
+    ax.set_ylabel(_units(d["weighted"]))
+    weighting = "weighted" if d["weighted"] else "unweighted"
+    ax.set_title(f"{target} / {recipe}: pulse profile ({weighting}, {d['events']:,} "
+                 f"events, sum of weights {d['sum_weights']:,.1f})")
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
+    ax.grid(alpha=0.25)
+
+
 def draw_profile(Figure, target: str, profiles: dict[str, dict]):
     recipes = list(profiles)
     panel, gap = 2.9, 1.0
@@ -86,33 +124,7 @@ def draw_profile(Figure, target: str, profiles: dict[str, dict]):
     axes = fig.subplots(len(recipes), 1, squeeze=False)[:, 0]
     _frame(fig, width, height, right=3.3, hgap=gap / panel)
     for ax, recipe in zip(axes, recipes, strict=True):
-        d = profiles[recipe]
-        bins = d["bins"]
-        centres = (np.arange(2 * bins) + 0.5) / bins
-        counts = np.tile(d["counts"], 2)
-        errors = np.tile(d["errors"], 2)
-        ax.stairs(counts, np.arange(2 * bins + 1) / bins, baseline=None, color=_SERIES[0],
-                  linewidth=1.3, label=f"data, {d['source']}")
-        ax.errorbar(centres, counts, yerr=errors, fmt="none", ecolor=_SERIES[0],
-                    elinewidth=1, capsize=0, label="±1σ per bin")
-        if d["fourier"] is not None:
-            ax.plot(d["fine_phase"], d["fourier"], color=_SERIES[1], linewidth=1.6,
-                    label=f"harmonic estimate\n({d['harmonics']} harmonics)")
-        if d.get("background_per_bin") is not None:
-            ax.axhline(d["background_per_bin"], color=OKABE_ITO["black"], linestyle=":",
-                       linewidth=1.3, label="background level")
-        if d["template_curve"] is not None:
-            ax.plot(d["fine_phase"], d["template_curve"], color=_SERIES[2], linewidth=1.4,
-                    linestyle="--", label=f"template at fitted offset\n"
-                    f"({d['template_shift_cycles']:+.4f} cycles)")
-        ax.set_xlim(0, 2)
-        ax.set_xlabel("rotational phase (cycles; two cycles shown)")
-        ax.set_ylabel(_units(d["weighted"]))
-        weighting = "weighted" if d["weighted"] else "unweighted"
-        ax.set_title(f"{target} / {recipe}: pulse profile ({weighting}, {d['events']:,} "
-                     f"events, sum of weights {d['sum_weights']:,.1f})")
-        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
-        ax.grid(alpha=0.25)
+        _profile_panel(ax, target, recipe, profiles[recipe])
     return fig
 
 
@@ -121,20 +133,71 @@ def draw_phase_time_map(Figure, target: str, time_maps: dict[str, dict], hours: 
     width, height = 5.5 * len(recipes) + 0.5, 5.2
     fig = Figure(figsize=(width, height), dpi=_DPI)
     axes = fig.subplots(1, len(recipes), squeeze=False)[0]
-    _frame(fig, width, height, left=0.95, right=0.95, wgap=0.42)
+    _frame(fig, width, height, left=1.05, right=0.95, wgap=0.45)
     for ax, recipe in zip(axes, recipes, strict=True):
         d = time_maps[recipe]
-        image = np.tile(d["counts"], (1, 2))
+        exposure = np.asarray(d["row_exposure"], float)[:, None]
+        image = np.tile(np.asarray(d["counts"], float)
+                        / np.where(exposure > 0, exposure, 1.0), (1, 2))  # per full row
         phase_edges = np.arange(2 * d["bins"] + 1) / d["bins"]
-        mesh = ax.pcolormesh(phase_edges, hours.plot(d["time_edges_utc_hours"]), image,
-                             cmap="viridis",
-                             shading="flat")
-        bar = fig.colorbar(mesh, ax=ax, fraction=0.08, pad=0.03)
+        rows = hours.plot(d["time_edges_utc_hours"])
+        low, high = d["colour_range"]
+        mesh = ax.pcolormesh(phase_edges, rows, image, cmap="viridis", shading="flat",
+                             vmin=low, vmax=high)
+        bar = fig.colorbar(mesh, ax=ax, fraction=0.08, pad=0.03, extend="both")
         bar.set_label(f"{_units(d['weighted'])} per {d['row_seconds']} s")
         ax.set_xlabel("rotational phase (cycles)")
-        ax.set_ylabel(hours.axis_label)
+        ax.set_ylabel(utc_axis(ax.yaxis, hours, float(rows[0]), float(rows[-1])))
+        ax.set_ylim(rows[0], rows[-1])
         ax.set_title(f"{target} / {recipe}: phase-time map")
     return fig
+
+
+def _significance_panel(ax, target: str, recipe: str, d: dict, hours: UtcHours) -> None:
+    top, last = 7.0, None
+    for index, (label, series) in enumerate(d["windows"].items()):
+        colour = _SERIES[index % len(_SERIES)]
+        x, y = hours.plot(series["utc_hours"]), series["h_sigma"]
+        name = ("all data so far" if label == "cumulative"
+                else "last " + label.replace("min", " min"))
+        ax.plot(x, y, color=colour, linewidth=1.6, marker="o", markersize=3,
+                label=f"H-test, {name}")
+        if np.isfinite(y).any():
+            top = max(top, float(np.nanmax(y)) * 1.15)
+        if label == "cumulative":
+            trials = series["trials"]
+            ax.plot(x, series["h_sigma_post_trials"], color=colour, linewidth=1.2,
+                    linestyle=":", label=f"all data, after {trials} trial"
+                    f"{'s' if trials != 1 else ''}")
+            last = (y[-1], series["h_sigma_post_trials"][-1], trials)
+            _sqrt_t(ax, d.get("sqrt_t_fit"), series, hours)
+    labelled = (3, 4, 5) if top <= 25 else (3, 5) if top <= 50 else (5,)
+    for level in (3, 4, 5):
+        ax.axhline(level, color="#777777", linewidth=0.9, linestyle=(0, (4, 3)))
+        if level in labelled:
+            ax.annotate(f"{level}σ", xy=(1.0, level), xycoords=("axes fraction", "data"),
+                        xytext=(3, 0), textcoords="offset points", va="center",
+                        fontsize=10, color="#555555")
+    ax.set_ylim(bottom=min(0.0, ax.get_ylim()[0]), top=top)
+    ax.set_ylabel("significance (σ, one-sided)")
+    now = ""
+    if last is not None and np.isfinite(last[0]):
+        now = (f": now {last[0]:.1f}σ, {last[1]:.1f}σ after {last[2]} trials"
+               if last[0] >= 0 else ": no excess")
+    ax.set_title(f"{target} / {recipe}: significance against time{now}")
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
+    ax.grid(alpha=0.25)
+
+
+def _sqrt_t(ax, fit: dict | None, series: dict, hours: UtcHours) -> None:
+    """The √t growth of a steady pulsar's σ, drawn only for a detected pulsar."""
+    if fit is None:
+        return
+    t_ns = np.linspace(fit["start_tt_ns"], series["data_until_tt_ns"][-1], 200)
+    seconds = (t_ns - fit["start_tt_ns"]) / NS_PER_S
+    ax.plot(hours.plot(hours(t_ns.astype(np.int64))), fit["sigma_per_sqrt_s"] * np.sqrt(seconds),
+            color=OKABE_ITO["reddish_purple"], linestyle="--", linewidth=1.2,
+            label=f"steady pulsar: σ ∝ √t\n({fit['sigma_per_sqrt_s'] * 60:.3g} σ/√h)")
 
 
 def draw_significance(Figure, target: str, curves: dict[str, dict], hours: UtcHours):
@@ -143,48 +206,31 @@ def draw_significance(Figure, target: str, curves: dict[str, dict], hours: UtcHo
     width, height = 11.0, len(recipes) * panel + (len(recipes) - 1) * gap + 1.1
     fig = Figure(figsize=(width, height), dpi=_DPI)
     axes = fig.subplots(len(recipes), 1, squeeze=False, sharex=True)[:, 0]
-    _frame(fig, width, height, right=0.55, hgap=gap / panel)
+    _frame(fig, width, height, right=2.9, hgap=gap / panel)
     for ax, recipe in zip(axes, recipes, strict=True):
-        d = curves[recipe]
-        top = 7.0
-        for index, (label, series) in enumerate(d["windows"].items()):
-            colour = _SERIES[index % len(_SERIES)]
-            x, y = hours.plot(series["utc_hours"]), series["h_sigma"]
-            ax.plot(x, y, color=colour, linewidth=1.6, marker="o", markersize=3,
-                    label=f"{label}" + (" (H-test)" if index == 0 else ""))
-            if np.isfinite(y).any():
-                top = max(top, float(np.nanmax(y)) * 1.15)
-            if label == "cumulative":
-                post = series["h_sigma_post_trials"]
-                trials = series["trials"]
-                ax.plot(x, post, color=colour, linewidth=1.2, linestyle=":",
-                        label=f"cumulative after {trials} trial{'s' if trials != 1 else ''}")
-                if np.isfinite(y[-1]):
-                    ax.annotate(f"{y[-1]:.1f}σ ({post[-1]:.1f}σ after trials)",
-                                xy=(x[-1], y[-1]), xytext=(-8, 8), textcoords="offset points",
-                                ha="right", fontsize=10, color=colour)
-                fit = d.get("sqrt_t_fit")
-                if fit is not None:
-                    t_ns = np.linspace(fit["start_tt_ns"], series["data_until_tt_ns"][-1], 200)
-                    seconds = (t_ns - fit["start_tt_ns"]) / NS_PER_S
-                    ax.plot(hours.plot(hours(t_ns.astype(np.int64))),
-                            fit["sigma_per_sqrt_s"] * np.sqrt(seconds),
-                            color=OKABE_ITO["reddish_purple"], linestyle="--", linewidth=1.2,
-                            label=f"√t reference ({fit['sigma_per_sqrt_s'] * 60:.3g} σ/√h)")
-        labelled = (3, 4, 5) if top <= 25 else (3, 5) if top <= 50 else (5,)
-        for level in (3, 4, 5):
-            ax.axhline(level, color="#777777", linewidth=0.9, linestyle=(0, (4, 3)))
-            if level in labelled:
-                ax.annotate(f"{level}σ", xy=(1.0, level), xycoords=("axes fraction", "data"),
-                            xytext=(3, 0), textcoords="offset points", va="center",
-                            fontsize=10, color="#555555")
-        ax.set_ylim(bottom=min(0.0, ax.get_ylim()[0]), top=top)
-        ax.set_ylabel("significance (σ, one-sided)")
-        ax.set_title(f"{target} / {recipe}: significance against time ({d['source']})")
-        ax.legend(loc="best", frameon=True, framealpha=0.9, edgecolor="none", ncol=2)
-        ax.grid(alpha=0.25)
-    axes[-1].set_xlabel(hours.axis_label)
+        _significance_panel(ax, target, recipe, curves[recipe], hours)
+    low, high = axes[-1].get_xlim()
+    axes[-1].set_xlabel(utc_axis(axes[-1].xaxis, hours, low, high))
     return fig
+
+
+def _clock_model(ax, d: dict, x: np.ndarray, hours: UtcHours) -> None:
+    """The fitted model of the offsets: a step as a step, else the constant offset."""
+    colour = OKABE_ITO["vermillion"]
+    levels, at = d.get("step_levels_us"), d.get("step_time_utc_hours")
+    if levels is not None and at is not None and x.size:
+        step_x = float(hours.plot(at))
+        ax.plot([min(x.min(), step_x), step_x, step_x, max(x.max(), step_x)],
+                [levels[0], levels[0], levels[1], levels[1]], color=colour, linestyle="--",
+                linewidth=1.4, label=f"fitted step {levels[1] - levels[0]:+.1f} µs")
+    elif d.get("drift_line") is not None:
+        line = d["drift_line"]
+        rate = np.diff(line["offset_us"])[0] / max(np.diff(line["utc_hours"])[0], 1e-12)
+        ax.plot(hours.plot(line["utc_hours"]), line["offset_us"], color=colour, linestyle="--",
+                linewidth=1.4, label=f"fitted drift {rate:+.1f} µs/h")
+    elif d["fitted_offset_us"] is not None:
+        ax.axhline(d["fitted_offset_us"], color=colour, linestyle="--", linewidth=1.2,
+                   label=f"night's offset {d['fitted_offset_us']:+.1f} µs")
 
 
 def draw_clock(Figure, target: str, d: dict, hours: UtcHours):
@@ -198,7 +244,7 @@ def draw_clock(Figure, target: str, d: dict, hours: UtcHours):
     width, height = 11.0, plot + text + 1.1
     fig = Figure(figsize=(width, height), dpi=_DPI)
     ax = fig.subplots()
-    _frame(fig, width, height, bottom=0.65 + text)
+    _frame(fig, width, height, right=2.9, bottom=0.65 + text)
     x, y, e = hours.plot(d["utc_hours"]), d["offset_us"], d["sigma_us"]
     detected = d["detected"]
     if d["tolerance_us"] is not None:
@@ -208,20 +254,19 @@ def draw_clock(Figure, target: str, d: dict, hours: UtcHours):
     e_plot = np.where(np.isfinite(e), e, np.nan)
     if detected.size and detected.any():
         ax.errorbar(x[detected], y[detected], yerr=e_plot[detected], fmt="o", markersize=4,
-                    color=_SERIES[0], elinewidth=1.2, label="chunk offset (pulse detected)")
+                    color=_SERIES[0], elinewidth=1.2, label="pulse arrival offset\nper chunk")
     if detected.size and (~detected).any():
         ax.errorbar(x[~detected], y[~detected], yerr=e_plot[~detected], fmt="o",
                     markersize=4, markerfacecolor="white", color="#888888",
-                    label="chunk offset (not detected)")
-    if d["fitted_offset_us"] is not None:
-        ax.axhline(d["fitted_offset_us"], color=OKABE_ITO["vermillion"], linestyle="--",
-                   linewidth=1.2, label=f"fitted offset {d['fitted_offset_us']:+.1f} µs")
-    ax.set_xlabel(hours.axis_label)
+                    label="chunk without\na detected pulse")
+    _clock_model(ax, d, x, hours)
+    low, high = ax.get_xlim()
+    ax.set_xlabel(utc_axis(ax.xaxis, hours, low, high))
     ax.set_ylabel("offset from template (µs)")
     colour = _STATUS_COLOUR.get(d["status"], OKABE_ITO["black"])
     ax.set_title(f"{target} / {d['recipe']}: clock-chain check — {d['status']} "
                  f"({d['kind']})", color=colour)
-    ax.legend(loc="upper right", frameon=True, framealpha=0.85, ncol=2)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
     ax.grid(alpha=0.25)
     fig.text(0.85 / width, (text + 0.05) / height, "\n".join(lines), va="top", ha="left",
              fontsize=10, family="monospace")

@@ -160,6 +160,9 @@ def _read_tagging_output(folder: Path, streams: _Streams) -> list[Path]:
         except (ArrowFileError, OSError, pa.ArrowException) as exc:
             streams.notes.append(f"{path.name} skipped: {exc}")
             continue
+        if not metadata_of(table.schema).get("software", "").startswith("turnstamp"):
+            streams.notes.append(f"{path.name} skipped: not written by turnstamp")
+            continue
         if _is_schema(table, schemas.ARCHIVE):
             archive_files.append(path)
             streams.metadata = streams.metadata or metadata_of(table.schema)
@@ -169,8 +172,10 @@ def _read_tagging_output(folder: Path, streams: _Streams) -> list[Path]:
         elif _is_schema(table, schemas.REJECTS):
             extra_rejects.append(table.select(schemas.REJECTS.names))
     if not archive_files:
-        raise ReportError(f"{folder}: no turnstamp output here (no stream files and no "
-                          "file of archive schema)")
+        raise ReportError(f"{folder}: not a turnstamp output folder: no stream files "
+                          "(archive-*.arrow, significance-*.arrow, ...) and no archive written "
+                          "by turnstamp tag; give the service's output.directory or the folder "
+                          "of a turnstamp tag --out file")
     if extra_rejects:
         rejects = pa.concat_tables(extra_rejects, promote_options="permissive")
         streams.tables["rejects"] = rejects

@@ -98,6 +98,11 @@ def accounting_html(acc: dict, night: NightFolder) -> str:
                        for t, n in sorted(acc["archive_rows_by_target"].items()))
         out.append("<table><tr><th class=text>target</th><th>archive rows</th></tr>"
                    f"{rows}</table>")
+    if acc.get("problem_lines"):
+        items = "".join(f"<li{' class=bad' if 'validity' in line else ''}>{escape(line)}</li>"
+                        for line in acc["problem_lines"])
+        out.append(f'<p>Archive rows tagged with a quality problem:</p><ul id="accounting-'
+                   f'problems">{items}</ul>')
     if acc["rejected_by_reason"]:
         rows = "".join(f"<tr><td class=text>{escape(r['source'])}</td><td class=text>"
                        f"{escape(r['reason'])}</td><td>{_number(r['events'])}</td>"

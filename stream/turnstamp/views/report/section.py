@@ -7,7 +7,14 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from .content import NightContent
-from .figuredata import clock_data, phase_time_map_data, profile_data, significance_data
+from .figuredata import (
+    DETECTED_SIGMA,
+    clock_data,
+    final_sigma,
+    phase_time_map_data,
+    profile_data,
+    significance_data,
+)
 from .figures import (
     draw_clock,
     draw_phase_time_map,
@@ -23,9 +30,9 @@ __all__ = ["TargetSection", "target_section"]
 
 _PROFILE_KEYS = ("source", "events", "sum_weights", "counts", "errors", "harmonics",
                  "background_per_bin", "template_shift_cycles", "template_amplitude",
-                 "weighted", "bins", "data_until_tt_ns")
+                 "weighted", "bins", "data_until_tt_ns", "pulsed", "detected_sigma")
 _TIME_MAP_KEYS = ("counts", "time_edges_tt_ns", "time_edges_utc_hours", "bins", "total",
-                  "rows", "weighted", "row_seconds")
+                  "rows", "weighted", "row_seconds", "row_exposure", "colour_range")
 
 
 @dataclass
@@ -102,11 +109,24 @@ def _recipe_numbers(content: NightContent, target: str, recipes: list[str],
         time_map = phase_time_map_data(grid, content.hours)
         curve = significance_data(target, recipe, significance, grid, content.trials,
                                   content.hours, content.start_ns)
+        if profile is not None:
+            _mark_detection(profile, curve)
         for found, into in ((profile, numbers.profiles), (time_map, numbers.time_maps),
                             (curve, numbers.curves)):
             if found is not None:
                 into[recipe] = found
     return numbers
+
+
+def _mark_detection(profile: dict, curve: dict | None) -> None:
+    """Whether the profile shows a pulsation (the H-test on all data so far reaches
+    ``DETECTED_SIGMA``); without a significance curve it is taken to."""
+    sigma = final_sigma((curve or {}).get("windows", {}).get("cumulative"))
+    profile["detected_sigma"] = sigma
+    profile["detection_sigma"] = DETECTED_SIGMA
+    profile["pulsed"] = sigma is None or sigma >= DETECTED_SIGMA
+    if not profile["pulsed"]:
+        profile["template_note"] = None
 
 
 def _template_for(night: NightFolder, target: str):
@@ -132,11 +152,13 @@ def _profile_figure(Figure, target, stem, profiles) -> dict | None:
     if not profiles:
         return None
     notes = [p["template_note"] for p in profiles.values() if p["template_note"]]
+    source = next(iter(profiles.values()))["source"]
     return _figure(
         draw_profile(Figure, target, profiles), f"{stem}-profile.png",
         f"{target} pulse profiles",
-        f"{target}: pulse profile over two cycles per recipe, with errors sqrt(sum of "
-        "squared weights), the harmonic estimate and the background level. "
+        f"{target}: pulse profile over two cycles per recipe ({source}), with errors "
+        "sqrt(sum of squared weights); for a detected pulsation, "
+        f"the Fourier estimate and the unpulsed level (H-test at least {DETECTED_SIGMA:g}σ). "
         + ("Overlay: " + notes[0] + "." if notes else ""))
 
 
@@ -147,7 +169,9 @@ def _time_map_figure(Figure, content, target, stem, time_maps) -> dict | None:
         draw_phase_time_map(Figure, target, time_maps, content.hours),
         f"{stem}-phase-time-map.png", f"{target} phase-time map",
         f"{target}: phase against time from the archive rows (weights as in each recipe's "
-        "statistics; events outside the spin model's validity left out).")
+        "statistics; events outside the spin model's validity left out). A row only partly "
+        "covered by data (the first and the last) is scaled to a full row's time; the colour "
+        "scale is set by the rows fully covered.")
 
 
 def _significance_figure(Figure, content, target, stem, curves) -> dict | None:
@@ -157,8 +181,8 @@ def _significance_figure(Figure, content, target, stem, curves) -> dict | None:
         draw_significance(Figure, target, curves, content.hours),
         f"{stem}-significance.png", f"{target} significance against time",
         f"{target}: H-test significance per window; dotted: after the trials correction; "
-        "dashed: σ ∝ √t fitted to the cumulative curve (a steady pulsar's significance "
-        "grows as the square root of exposure).")
+        "dashed, for a detected pulsar only: σ ∝ √t fitted to the cumulative curve (a steady "
+        "pulsar's significance grows as the square root of exposure).")
 
 
 def _clock_figure(Figure, content, target, stem, clock) -> dict | None:
@@ -166,5 +190,5 @@ def _clock_figure(Figure, content, target, stem, clock) -> dict | None:
         return None
     return _figure(draw_clock(Figure, target, clock, content.hours), f"{stem}-clock.png",
                    f"{target} clock-chain check",
-                   f"{target}: template offset per chunk with 1σ errors and the tolerance "
-                   "band.")
+                   f"{target}: template offset per chunk with 1σ errors, the tolerance band "
+                   "and the fitted model (a step drawn as a step).")

@@ -19,7 +19,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from ...core.flags import Quality
+from ...core.accounting import EXCLUDED_FROM_STATISTICS, QualityCounts
 from ...core.moments import DEFAULT_BINS, MAX_HARMONICS, PhaseMoments
 from ...core.timebase import NS_PER_DAY, NS_PER_S, Scale, format_instant, from_tt
 from ...errors import ArrowFileError
@@ -92,6 +92,7 @@ class _FileReduction:
     rows_by_target: dict[str, int]
     model_ids: dict[str, set[str]]
     with_moments: bool
+    quality: QualityCounts = field(default_factory=QualityCounts)
 
 
 _CACHE: dict[tuple[str, int, int, tuple], _FileReduction] = {}
@@ -160,14 +161,15 @@ def _reduce_batch(batch: pa.RecordBatch, recipes: dict[str, list[str]],
                "phase": _numpy(batch, "phase").astype(np.float64),
                "weight": _numpy(batch, "weight").astype(np.float64),
                "flags": _numpy(batch, "recipe_flags"),
-               "usable": (_numpy(batch, "quality_flags")
-                          & np.uint32(Quality.OUTSIDE_MODEL_VALIDITY)) == 0}
+               "quality": _numpy(batch, "quality_flags")}
+    columns["usable"] = (columns["quality"] & np.uint32(EXCLUDED_FROM_STATISTICS)) == 0
     for i, target in enumerate(target_names):
         rows = target_index == i
         count = int(rows.sum())
         if not count:
             continue
         reduction.rows_by_target[target] = reduction.rows_by_target.get(target, 0) + count
+        reduction.quality.add(target, columns["quality"][rows])
         if models is not None:
             model_index, model_names = models
             reduction.model_ids.setdefault(target, set()).update(
@@ -239,6 +241,8 @@ class ArchiveSummary:
     grids: dict[tuple[str, str], Grid]
     rows_by_target: dict[str, int]
     model_ids: dict[str, set[str]]
+    quality: QualityCounts = field(default_factory=QualityCounts)
+    """Archive rows tagged with a quality problem, per target and flag."""
 
 
 def _cell_ns(night: NightFolder) -> int:
@@ -264,6 +268,7 @@ def reduce_archive(night: NightFolder, weighted, bins, with_moments, recipes):
     grids: dict[tuple[str, str], Grid] = {}
     rows: dict[str, int] = {}
     models: dict[str, set[str]] = {}
+    quality = QualityCounts()
     cell_ns = _cell_ns(night)
     for path in night.archive_files:
         try:
@@ -283,7 +288,11 @@ def reduce_archive(night: NightFolder, weighted, bins, with_moments, recipes):
             rows[target] = rows.get(target, 0) + count
         for target, ids in part.model_ids.items():
             models.setdefault(target, set()).update(ids)
-    return ArchiveSummary(grids, rows, models)
+        for target, counts in part.quality.by_target.items():
+            into = quality.by_target.setdefault(target, {})
+            for name, n in counts.items():
+                into[name] = into.get(name, 0) + n
+    return ArchiveSummary(grids, rows, models, quality)
 
 
 # --------------------------------------------------------------------------------------
