@@ -61,6 +61,14 @@ def lantern_table(demo_env, night_start_tt):
         setup.position, night_start_tt - 3600 * NS_PER_S, night_start_tt + 6 * 3600 * NS_PER_S)
 
 
+@pytest.fixture(scope="session")
+def demo_site_file():
+    """The demo's invented site as a file (``tag`` wants a site named)."""
+    from turnstamp.demo import data_file
+
+    return data_file("corvid-ridge.toml")
+
+
 @pytest.fixture
 def lantern(lantern_table):
     """A fresh TargetSetup for the invented pulsar with two recipes."""

@@ -90,6 +90,38 @@ def test_tag_events_refuses_an_unknown_time_scale(events_table):
                              time_scale="local")
 
 
+def test_tag_events_names_the_target_after_the_model(events_table):
+    archive = turnstamp.tag_events(events_table.slice(0, 100), data_file("lantern.toml"),
+                                   DEMO_SITE)
+    assert set(archive["target"].to_pylist()) == {"Lantern"}
+
+
+def test_tag_events_reads_other_time_conventions(events_table):
+    # the same instants as Unix-epoch nanoseconds, and as float seconds since 1970:
+    # the same phases (float seconds hold ~0.1 µs here, 3e-5 cycles at 311 Hz)
+    from turnstamp.core.timebase import NS_PER_S, parse_instant
+
+    events = events_table.slice(0, 2000)
+    native = turnstamp.tag_events(events, data_file("lantern.toml"), DEMO_SITE)
+    unix_ns = events["time_ns"].to_numpy() - parse_instant("1970-01-01T00:00:00")
+    as_unix = events.set_column(1, "time_ns", pa.array(unix_ns))
+    with pytest.raises(InputError, match="--time-origin unix"):
+        turnstamp.tag_events(as_unix, data_file("lantern.toml"), DEMO_SITE)
+    unix = turnstamp.tag_events(as_unix, data_file("lantern.toml"), DEMO_SITE,
+                                time_origin="unix")
+    assert unix["phase"].equals(native["phase"])
+    seconds = events.set_column(1, "time_ns", pa.array(unix_ns / NS_PER_S))
+    with pytest.raises(InputError, match="--time-unit s --time-origin unix"):
+        turnstamp.tag_events(seconds, data_file("lantern.toml"), DEMO_SITE,
+                             time_origin="unix")
+    from_seconds = turnstamp.tag_events(seconds, data_file("lantern.toml"), DEMO_SITE,
+                                        time_origin="unix", time_unit="s")
+    difference = from_seconds["phase"].to_numpy() - native["phase"].to_numpy()
+    assert np.max(np.abs((difference + 0.5) % 1 - 0.5)) < 1e-4
+    with pytest.raises(InputError, match="time origin"):
+        turnstamp.tag_events(events, data_file("lantern.toml"), DEMO_SITE, time_origin="noon")
+
+
 # A template density written here, independently of turnstamp: a flat part plus one
 # wrapped Gaussian peak (the normal density summed over whole turns; common practice).
 PULSED_FRACTION = 0.4

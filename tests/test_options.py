@@ -42,7 +42,7 @@ def test_one_name_per_concept():
              for option in action.option_strings}
     flat = {option for _, option in names}
     # retired spellings of the same concepts
-    assert not {"--to", "--cache", "--scale"} & {o for c, o in names if c != "tag"}
+    assert not {"--to", "--cache", "--scale"} & flat
     assert ("report", "--out-dir") in names and ("demo", "--out-dir") in names
     assert ("table", "--table-cache") in names
     assert "--out" not in {o for c, o in names if c in ("demo", "report")}  # folders: --out-dir

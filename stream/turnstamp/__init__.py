@@ -117,7 +117,8 @@ def load_template(path: _PathLike) -> PulseTemplate:
 def tag_events(events: pa.Table | Mapping[str, np.ndarray],
                models: SpinModel | _PathLike | Sequence[SpinModel | _PathLike],
                site: SiteConfig | _PathLike, *, time_scale: str = "UTC",
-               target: str = "target", source: str = "events",
+               time_origin: str = "2000-01-01T12:00:00", time_unit: str | None = None,
+               target: str | None = None, source: str = "events",
                table_cache: _PathLike | None = None) -> pa.Table:
     """Barycentric time and rotational phase of every event, as ``turnstamp tag`` gives.
 
@@ -127,17 +128,28 @@ def tag_events(events: pa.Table | Mapping[str, np.ndarray],
     Parameters
     ----------
     events : pyarrow.Table or mapping of str to numpy.ndarray
-        ``event_id`` (uint64) and ``time_ns`` (int64 ns since 2000-01-01T12:00:00 in
-        ``time_scale``), and optionally the other columns of the wire format
-        (``energy_kev``, ``ra_deg``, ``dec_deg``, ``score``, ``weight``, ...).
+        ``event_id`` (uint64) and ``time_ns`` (by default int64 ns since
+        2000-01-01T12:00:00 in ``time_scale``), and optionally the other columns of
+        the wire format (``energy_kev``, ``ra_deg``, ``dec_deg``, ``score``,
+        ``weight``, ...).
     models : SpinModel, path, or a sequence of them
         The target's spin models (several: one per validity window).
     site : SiteConfig or path
         The site, or a file with a [site] table (see ``load_site``).
     time_scale : {"UTC", "TAI", "GPS", "TT"}
         Scale of ``time_ns`` (for UTC, a count of labels of 86 400 s a day).
-    target : str
-        Target name written to the archive's ``target`` column.
+    time_origin : str
+        What ``time_ns`` counts from: "2000-01-01T12:00:00" (default), "unix"
+        (1970-01-01T00:00:00), "gps" (1980-01-06T00:00:00) or any instant
+        ``YYYY-MM-DDTHH:MM:SS``, in ``time_scale``.
+    time_unit : {"ns", "us", "ms", "s"}, optional
+        Unit of ``time_ns`` (default ns; floating-point columns are accepted in the
+        other units and rounded to the nearest ns). Saying "ns" explicitly also
+        accepts times within 40 days of the origin, which otherwise look like
+        seconds read as nanoseconds.
+    target : str, optional
+        Target name written to the archive's ``target`` column (default: the
+        models' target name).
     source : str
         Written to the archive's ``source`` column.
     table_cache : path, optional
@@ -154,25 +166,30 @@ def tag_events(events: pa.Table | Mapping[str, np.ndarray],
     Raises
     ------
     turnstamp.errors.InputError
-        A missing or mistyped column, an unknown time scale, invalid models.
+        A missing or mistyped column, an unknown time scale, origin or unit, times
+        that look like another convention (the error names the likely one), invalid
+        models.
     """
     from pathlib import Path
 
     import pyarrow as pa
 
-    from .assemble import Environment, phase_calculators_for, target_setup
+    from .assemble import Environment
     from .core.timebase import Scale
     from .errors import InputError
-    from .tagging import tag_table
+    from .tagging.run import offline_target, tag_table
+    from .tagging.times import TimeConvention
 
     table = events if isinstance(events, pa.Table) else pa.table(dict(events))
     if time_scale not in ("UTC", "TAI", "GPS", "TT"):
         raise InputError("time_scale", time_scale, "must be one of ['UTC', 'TAI', 'GPS', 'TT']")
-    setup = target_setup(target, phase_calculators_for(_spin_models(models)))
+    convention = TimeConvention(time_origin, time_unit)
+    setup = offline_target(_spin_models(models), target)
     env = Environment.from_site(site if not isinstance(site, str | os.PathLike)
                                 else load_site(site))
     return tag_table(table, setup, env, Scale(time_scale),
-                     None if table_cache is None else Path(table_cache), source=source)
+                     None if table_cache is None else Path(table_cache), source=source,
+                     convention=convention)
 
 
 def _spin_models(models) -> list[SpinModel]:

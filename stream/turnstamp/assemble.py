@@ -14,6 +14,7 @@ import logging
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -26,11 +27,13 @@ from .core.phase import PhaseCalculator
 from .core.spin import SpinModel
 from .core.tagger import TargetTagger
 from .core.targets import Recipe, TargetSetup
-from .core.template import PulseTemplate
 from .core.timebase import NS_PER_S, ClockCorrection, LeapSecondTable, parse_instant
 from .errors import ConfigError
 from .files.bundled import bundled_leap_seconds, load_earth_orientation, open_ephemeris
 from .files.inputs import load_spin_model, load_template
+
+if TYPE_CHECKING:
+    from .core.template import PulseTemplate
 
 __all__ = ["Environment", "TableCache", "phase_calculators_for", "load_phase_calculators",
            "target_setup", "build_target", "recipe_from"]
@@ -132,14 +135,18 @@ class TableCache:
         return BarycentreCalculator(self.env.observer, position, self.env.ephemeris,
                                     self.env.orientation, tuple(self.settings.shapiro_bodies))
 
+    def provenance(self, position: SkyPosition) -> dict[str, str]:
+        """What determines every table of ``position``, but its time span."""
+        return {**self._calculator(position).provenance(),
+                "segment_ns": str(int(self.settings.segment_minutes * 60 * NS_PER_S)),
+                "degree": str(self.settings.degree), "format": "turnstamp barycentre table 1"}
+
     def table(self, position: SkyPosition, start_ns: int, stop_ns: int) -> CorrectionTable:
         segment_ns = int(self.settings.segment_minutes * 60 * NS_PER_S)
         start = (start_ns // segment_ns) * segment_ns
         stop = -(-stop_ns // segment_ns) * segment_ns
         calculator = self._calculator(position)
-        provenance = {**calculator.provenance(), "segment_ns": str(segment_ns),
-                      "degree": str(self.settings.degree), "start_ns": str(start),
-                      "stop_ns": str(stop), "format": "turnstamp barycentre table 1"}
+        provenance = {**self.provenance(position), "start_ns": str(start), "stop_ns": str(stop)}
         key = hashlib.sha256(json.dumps(provenance, sort_keys=True).encode()).hexdigest()[:16]
         path = None if self.directory is None else self.directory / f"barycentre-{key}.arrow"
         if path is not None and path.exists():
@@ -150,7 +157,10 @@ class TableCache:
         table = CorrectionTable.build(calculator.correction, start, stop, segment_ns,
                                       self.settings.degree, provenance)
         if path is not None:
-            _write_table(path, table)
+            try:
+                _write_table(path, table)
+            except OSError as exc:  # a read-only or full cache costs a rebuild next time
+                log.warning("barycentre table not cached in %s: %s", path.parent, exc)
         return table
 
 
@@ -185,7 +195,10 @@ def _read_table(path: Path, provenance: dict[str, str]) -> CorrectionTable | Non
         log.warning("ignoring cached table %s: provenance differs", path)
         return None
     width = arrow.schema.field("coefficients_s").type.list_size
-    coefficients = arrow["coefficients_s"].combine_chunks().flatten().to_numpy()
+    column = arrow["coefficients_s"]
+    lists = column.chunk(0) if column.num_chunks == 1 else column.combine_chunks()
+    # the child values (not .flatten(), which loads pyarrow.compute: 0.1 s at start-up)
+    coefficients = lists.values.slice(lists.offset * width, len(lists) * width).to_numpy()
     return CorrectionTable.from_columns(
         arrow["segment_start_ns"].to_numpy(), coefficients.reshape(-1, width),
         arrow["flags"].to_numpy(), stored)

@@ -63,7 +63,15 @@ def test_feeding_whole_or_split_gives_identical_outputs(demo_env, lantern, night
     for name in ("event_id", "phase", "pulse_number", "barycentric_tdb_ns", "recipe_flags"):
         np.testing.assert_array_equal(archive_whole[name],
                                       np.concatenate([p[name] for p in pieces]))
-    assert whole.significance() == split.significance()
+    # the statistics are float sums over the same events in other groupings: equal to
+    # rounding (the moments' own split tests hold them to 1e-9 of the weight sum)
+    for a, b in zip(whole.significance(), split.significance(), strict=True):
+        assert a.keys() == b.keys()
+        for key, value in a.items():
+            if isinstance(value, str):
+                assert b[key] == value
+            else:
+                assert b[key] == pytest.approx(value, rel=1e-9), key
 
 
 def test_statistics_equal_a_direct_computation_on_the_archive(demo_env, lantern, night_start_tt):

@@ -5,13 +5,13 @@ import sys
 
 # Every module of the core, so that one missed by the discovery below still fails here.
 CORE_MODULES = [
-    "accounting", "barycentre", "batch", "binarydelay", "clock", "clock.chunks", "clock.diagnose",
-    "clock.mistakes", "clock.rating", "clock.series", "clock.smear", "clock.verdict",
-    "clock.wobble", "clock.wording", "correctiontable", "cycles", "earth", "emission",
-    "flags", "kepler", "moments", "momentstate", "orbit", "peaks", "periodicity", "phase",
-    "pipeline", "profile", "readout", "refold", "significance", "simulate", "spin",
-    "stacking", "tagger", "targets", "template", "templatefit", "templatenoise", "timebase",
-    "timebinned", "twofloat",
+    "accounting", "barycentre", "batch", "binarydelay", "chain", "clock", "clock.chunks",
+    "clock.diagnose", "clock.mistakes", "clock.rating", "clock.series", "clock.smear",
+    "clock.verdict", "clock.wobble", "clock.wording", "correctiontable", "cycles", "earth",
+    "emission", "flags", "harmonicsums", "kepler", "moments", "momentstate", "orbit", "peaks",
+    "periodicity", "phase", "pipeline", "profile", "readout", "refold", "significance",
+    "simulate", "spin", "stacking", "tagger", "targets", "template", "templatefit",
+    "templatenoise", "timebase", "timebinned", "twofloat",
 ]
 
 

@@ -175,3 +175,32 @@ def test_time_binned_refuses_bad_input():
     state["intervals"][1] = [INTERVAL, PhaseMoments(harmonics=3).to_state()]
     with pytest.raises(InputError, match="harmonics, bins"):
         TimeBinnedMoments.from_state(state)
+
+
+@pytest.mark.parametrize("ordered", [True, False])
+def test_update_together_equals_separate_updates(rng, ordered):
+    # recipes taking the same rows share the kernel's pass: each accumulator equals one
+    # filled on its own, and the direct numpy sums (moment_oracle)
+    from turnstamp.core.timebinned import update_together
+
+    times = rng.integers(0, 40 * INTERVAL, 30_000)
+    if ordered:
+        times = np.sort(times)
+    phases = rng.random(times.size)
+    weights = rng.random(times.size)
+    other = rng.random(times.size) * 3
+    sets = [None, weights, other]
+    together = [TimeBinnedMoments(INTERVAL, harmonics=9, bins=16) for _ in sets]
+    update_together(together, times, phases, sets)
+    for binned, w in zip(together, sets, strict=True):
+        alone = TimeBinnedMoments(INTERVAL, harmonics=9, bins=16).update(times, phases, w)
+        assert binned.latest_ns == alone.latest_ns
+        for (s1, a), (s2, b) in zip(binned.intervals(), alone.intervals(), strict=True):
+            assert s1 == s2
+            assert_same_moments(a, b)
+        assert_moments_match(binned.total(), phases, w)
+    with pytest.raises(ValueError, match="finite"):
+        bad = other.copy()
+        bad[7] = np.nan
+        update_together(together, times, phases, [None, weights, bad])
+    assert together[0].total().count == times.size  # nothing committed by the refusal

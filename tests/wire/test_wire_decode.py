@@ -315,7 +315,7 @@ def test_compressed_dictionary_batch_is_refused(codec):
 
 @pytest.mark.parametrize("name, error", [("uses_compression", TypeError),
                                          ("check_schema", ValueError),
-                                         ("column_to_numpy", ValueError)])
+                                         ("event_batch", ValueError)])
 def test_our_own_errors_propagate_and_are_not_refusals(monkeypatch, name, error):
     def broken(*args, **kwargs):
         raise error("a bug of ours")

@@ -1,4 +1,4 @@
-"""``turnstamp bench``: benchmark the hot paths (not a test)."""
+"""``turnstamp bench``: benchmark the hot paths and the tag command (not a test)."""
 
 from __future__ import annotations
 
@@ -6,15 +6,23 @@ __all__ = ["add_parser", "run"]
 
 
 def add_parser(subparsers) -> None:
-    p = subparsers.add_parser("bench", help="benchmark the hot paths (not a test)",
-                              description="Measure the hot paths against baselines taken in "
-                                          "the same run on the same machine.")
-    p.add_argument("--json", action="store_true", help="machine-readable output on stdout")
-    p.add_argument("--quick", action="store_true", help="smaller sizes, for a quick look")
+    p = subparsers.add_parser(
+        "bench", help="benchmark the hot paths and the tag command (not a test)",
+        description="Throughput and memory against targets, with baselines measured in "
+                    "the same run: the tagging kernel and moments, the whole tag command "
+                    "file to file, and (--service) the live service end to end.")
+    p.add_argument("--json", action="store_true",
+                   help="machine-readable output on stdout (default: text)")
+    p.add_argument("--quick", action="store_true",
+                   help="smaller sizes: 1e5/1e6 events instead of 1e6/1e7 (default: off)")
     p.add_argument("--service", action="store_true",
-                   help="also measure the service end to end, ZeroMQ to Arrow files")
+                   help="also ZeroMQ -> Arrow end to end (default: off)")
     p.add_argument("--soak", type=float, default=0.0, metavar="SECONDS",
-                   help="seconds of memory soak at 1e5 events/s (0: none)")
+                   help="seconds of service memory soak at 1e5 events/s (default 0: none)")
+    p.add_argument("--no-tag", action="store_true",
+                   help="skip the whole tag command, file to file (default: run it)")
+    p.add_argument("--tag-events", type=int, metavar="N",
+                   help="events in the tag command's files (default 1e7, 1e6 with --quick)")
     p.set_defaults(run=run)
 
 
@@ -23,6 +31,7 @@ def run(args) -> int:
 
     from ..bench.suite import run_benchmarks, summary_lines
 
-    results = run_benchmarks(quick=args.quick, service=args.service, soak_s=args.soak)
+    results = run_benchmarks(quick=args.quick, service=args.service, soak_s=args.soak,
+                             tag=not args.no_tag, tag_events=args.tag_events)
     print(json.dumps(results, indent=2) if args.json else "\n".join(summary_lines(results)))
     return 0

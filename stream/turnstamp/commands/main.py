@@ -65,9 +65,6 @@ def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     logging.basicConfig(level=logging.INFO if args.verbose else logging.WARNING,
                         format="%(asctime)s %(levelname)s %(name)s: %(message)s")
-    from ..files.bundled import ensure_offline
-
-    ensure_offline()
     try:
         return args.run(args)
     except (InputError, ArrowFileError, ReportError, OSError) as exc:  # theirs, not ours

@@ -2,42 +2,73 @@
 
 from __future__ import annotations
 
-import io
-from pathlib import Path
-
-from .common import add_site_option
+from .common import add_site_option, add_table_cache_option
 
 __all__ = ["add_parser", "run"]
 
+_ORIGIN_HELP = ("what time_ns counts from: 2000-01-01T12:00:00, unix (1970-01-01), gps "
+                "(1980-01-06) or any YYYY-MM-DDTHH:MM:SS in the time scale "
+                "(default 2000-01-01T12:00:00)")
+
 
 def add_parser(subparsers) -> None:
-    p = subparsers.add_parser("tag", help="tag a file of events offline (Arrow IPC or Parquet)")
-    p.add_argument("events", help="input with event_id and time_ns columns")
-    p.add_argument("--model", action="append", required=True,
-                   help="spin model file (TOML/JSON); repeat for several validity windows")
+    p = subparsers.add_parser(
+        "tag", help="tag a file of events offline (Arrow IPC or Parquet)",
+        description="Barycentric time and rotational phase of every event of a file, "
+                    "written to an archive file; read and written batch by batch.")
+    p.add_argument("events", help="input (.arrow, .arrows or .parquet) with event_id and "
+                                  "time_ns columns")
+    p.add_argument("--model", action="append", required=True, metavar="FILE",
+                   help="spin model file (TOML/JSON); repeat for several validity windows "
+                        "(required)")
     add_site_option(p)
-    p.add_argument("--scale", default="UTC", choices=["UTC", "TAI", "GPS", "TT"],
+    p.add_argument("--time-scale", default="UTC", choices=["UTC", "TAI", "GPS", "TT"],
                    help="time scale of time_ns (default UTC)")
-    p.add_argument("--out", required=True, help="output .arrow or .parquet")
-    p.add_argument("--target", help="target name written to the archive")
-    p.add_argument("--table-cache", help="folder for cached barycentre tables")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--time-origin", default="2000-01-01T12:00:00", metavar="ORIGIN",
+                   help=_ORIGIN_HELP)
+    p.add_argument("--time-unit", choices=["ns", "us", "ms", "s"],
+                   help="unit of time_ns (default ns; saying ns also accepts times within "
+                        "40 days of the origin)")
+    p.add_argument("--out", required=True, metavar="FILE",
+                   help="archive to write, .arrow or .parquet (required); refused if it "
+                        "exists, unless --force")
+    p.add_argument("--target", help="target name written to the archive (default: the "
+                                     "model's target name)")
+    add_table_cache_option(p, None)
+    p.add_argument("--force", action="store_true",
+                   help="overwrite existing outputs (default: refuse)")
+    p.add_argument("--json", action="store_true", help="print the summary as JSON on stdout "
+                                                       "(default: text)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar (default: a bar on "
+                                                        "a terminal)")
     p.set_defaults(run=run)
 
 
 def run(args) -> int:
-    from ..assemble import build_target
-    from ..core.timebase import Scale
-    from ..tagging import default_target, tag_file
-    from ..views.progress import progress
-    from .common import site_environment
+    import io
+    from pathlib import Path
 
-    env = site_environment(args.site)
-    setup = build_target(default_target(args.model, args.target))
-    quiet = io.StringIO() if args.quiet else None  # the bar drawn nowhere
+    from ..assemble import Environment
+    from ..config import load_site
+    from ..core.timebase import Scale
+    from ..files.inputs import load_spin_model
+    from ..tagging.run import offline_target, tag_file
+    from ..tagging.times import TimeConvention
+    from ..views.progress import progress
+
+    convention = TimeConvention(args.time_origin, args.time_unit)
+    setup = offline_target([load_spin_model(m) for m in args.model], args.target)
+    env = Environment.from_site(load_site(args.site))
+    quiet = io.StringIO() if args.quiet or args.json else None  # the bar drawn nowhere
     with progress("tagging events", stream=quiet) as advance:
-        summary = tag_file(Path(args.events), Path(args.out), setup, env, Scale(args.scale),
-                           Path(args.table_cache) if args.table_cache else None,
-                           on_batch=advance)
-    print("\n".join(summary.lines()))
+        summary = tag_file(Path(args.events), Path(args.out), setup, env,
+                           Scale(args.time_scale),
+                           table_cache=Path(args.table_cache) if args.table_cache else None,
+                           convention=convention, force=args.force, on_batch=advance)
+    if args.json:
+        import json
+
+        print(json.dumps(summary.as_dict(), indent=2))
+    else:
+        print("\n".join(summary.lines()))
     return 0

@@ -125,27 +125,45 @@ def describe_rejects(codes: np.ndarray) -> tuple[list[str], list[str]]:
     return [reason.value for reason, _ in described], [detail for _, detail in described]
 
 
-def check_values(batch: EventBatch, earliest_ns: int, latest_ns: int) -> np.ndarray:
+def check_values(batch: EventBatch, earliest_ns: int, latest_ns: int,
+                 checked: frozenset[str] | None = None) -> np.ndarray:
     """Per-event value checks: uint8 ``RejectCode`` values, 0 = accepted (the first
-    failing check wins)."""
+    failing check wins).
+
+    Parameters
+    ----------
+    batch : EventBatch
+    earliest_ns, latest_ns : int
+        Plausible range of ``time_ns`` (ns since 2000-01-01T12:00:00, the batch's scale).
+    checked : frozenset of str, optional
+        Optional columns whose values are checked (those something reads, e.g. a
+        recipe's cut); None checks every optional column present. An unchecked
+        column is carried as it is.
+    """
     n = len(batch)
     codes = np.zeros(n, np.uint8)
 
     def refuse(mask, code: RejectCode):
-        np.copyto(codes, np.uint8(code), where=mask & (codes == 0))
+        if mask.any():  # the usual batch refuses nothing: one pass per check
+            np.copyto(codes, np.uint8(code), where=mask & (codes == 0))
+
+    def present(*names) -> bool:
+        return all(getattr(batch, name) is not None and (checked is None or name in checked)
+                   for name in names)
 
     time = batch.time_ns
     refuse(batch.event_id == MISSING_ID, RejectCode.MISSING_EVENT_ID)
     refuse(time == MISSING_TIME, RejectCode.MISSING_TIME)
-    refuse((time < earliest_ns) | (time > latest_ns), RejectCode.IMPLAUSIBLE_TIME)
-    if batch.energy_kev is not None:
+    if n and (time.min() < earliest_ns or time.max() > latest_ns):
+        refuse((time < earliest_ns) | (time > latest_ns), RejectCode.IMPLAUSIBLE_TIME)
+    if present("energy_kev"):
         refuse(~(batch.energy_kev >= 0) | ~np.isfinite(batch.energy_kev), RejectCode.BAD_ENERGY)
-    if batch.ra_deg is not None and batch.dec_deg is not None:
+    if present("ra_deg", "dec_deg"):
         refuse(~np.isfinite(batch.ra_deg) | ~(np.abs(batch.dec_deg) <= 90),
                RejectCode.BAD_DIRECTION)
-    if batch.score is not None:
+    if present("score"):
         refuse(~np.isfinite(batch.score), RejectCode.BAD_SCORE)
-    if batch.weight is not None:
+    if present("weight"):
         refuse(~(batch.weight >= 0) | ~np.isfinite(batch.weight), RejectCode.BAD_WEIGHT)
     if n > 1 and not np.all(batch.event_id[1:] > batch.event_id[:-1]):  # sorted: no repeats
         order = np.argsort(batch.event_id, kind="stable")

@@ -206,6 +206,10 @@ class TableSet:
         tt_ns = np.asarray(tt_ns, dtype=np.int64)
         if not self._tables:
             return np.zeros(tt_ns.shape, bool)
+        if tt_ns.size > 1:  # a batch inside one piece, the usual case: no lookup per instant
+            first, last = self._piece(np.array([tt_ns.min(), tt_ns.max()]))
+            if first == last and first >= 0 and tt_ns.max() < self._tables[first].stop_ns:
+                return np.ones(tt_ns.shape, bool)
         piece = self._piece(tt_ns)
         stops = np.array([t.stop_ns for t in self._tables], dtype=np.int64)
         return (piece >= 0) & (tt_ns < stops[np.maximum(piece, 0)])
@@ -216,10 +220,10 @@ class TableSet:
         if not self._tables or tt_ns.size == 0:
             return (np.full(tt_ns.shape, np.nan), np.zeros(tt_ns.shape, np.uint32),
                     np.zeros(tt_ns.shape, bool))
-        piece = self._piece(tt_ns)
-        first, last = int(piece.min()), int(piece.max())
-        if first == last and first >= 0:
+        first, last = (int(p) for p in self._piece(np.array([tt_ns.min(), tt_ns.max()])))
+        if first == last and first >= 0:  # the usual case: no lookup per instant
             return self._tables[first].evaluate(tt_ns)
+        piece = self._piece(tt_ns)
         values = np.full(tt_ns.shape, np.nan)
         flags = np.zeros(tt_ns.shape, np.uint32)
         inside = np.zeros(tt_ns.shape, bool)

@@ -15,18 +15,16 @@ workers or time intervals merge exactly (up to float rounding) by addition.
 :class:`PhaseMoments` keeps these sums; :class:`turnstamp.core.timebinned.TimeBinnedMoments`
 keeps one per fixed time interval for sliding windows.
 
-Accumulation speed. Only cos and sin of the fundamental angle are evaluated per
-event. Higher harmonics follow from the complex recurrence
-``z_k = z_(k-1) · z_1`` with ``z_1 = exp(2πiφ)`` (rounding error grows about
-linearly in k, ~k·1e-16), processed in chunks that fit in cache.
+Accumulation speed: the sums come from :mod:`turnstamp.core.harmonicsums`, which
+evaluates one unit vector exp(2πiφ) per event (by table and Taylor series) and the
+higher harmonics by complex recurrence, in chunks that fit in cache, for any number
+of consecutive segments of events at once.
 
 The module does no I/O, holds no clock and imports neither zmq nor pyarrow.
 """
 
 from __future__ import annotations
 
-import math
-import threading
 from collections.abc import Mapping
 from typing import Any
 
@@ -34,6 +32,7 @@ import numpy as np
 
 from turnstamp.errors import InputError
 
+from .harmonicsums import SegmentSums, segment_sums
 from .momentstate import (
     STATE_VERSION,
     check_keys,
@@ -50,8 +49,7 @@ MAX_HARMONICS = 20
 DEFAULT_BINS = 32
 """Phase bins of the light-curve histogram by default."""
 
-_CHUNK = 8192  # events per pass: the (harmonics x chunk) complex block stays in cache
-_TWO_PI = 2.0 * math.pi
+_ONE_SEGMENT = np.zeros(1, dtype=np.intp)
 _MOMENT_KEYS = (
     "kind", "version", "harmonics", "bins", "count", "weighted", "sum_w", "sum_w2",
     "cos_sums", "sin_sums", "hist_w", "hist_w2",
@@ -65,20 +63,6 @@ def positive_int(name: str, value: object) -> int:
     return int(value)
 
 
-_LOCAL = threading.local()
-
-
-def _scratch(harmonics: int):
-    """Per-thread work arrays for ``update``, reused between calls: a fresh 2.6 MB
-    block per call would cost page faults on every batch."""
-    cached = getattr(_LOCAL, "arrays", None)
-    if cached is None or cached[0].shape[0] != harmonics:
-        cached = (np.empty((harmonics, _CHUNK), dtype=np.complex128), np.empty(_CHUNK),
-                  np.empty(_CHUNK, dtype=np.complex128))
-        _LOCAL.arrays = cached
-    return cached
-
-
 def _event_arrays(phases, weights):
     """Phases (and weights) as contiguous float64 vectors of the same length."""
     phases = np.ascontiguousarray(phases, dtype=np.float64).reshape(-1)
@@ -87,72 +71,6 @@ def _event_arrays(phases, weights):
         if weights.shape != phases.shape:
             raise ValueError(f"weights has {weights.size} values but phases has {phases.size}")
     return phases, weights
-
-
-def _reduced_phases(phi: np.ndarray) -> np.ndarray:
-    """Finite phases (cycles) reduced into [0, 1); ``ValueError`` on a non-finite one."""
-    lowest, highest = phi.min(), phi.max()
-    if not (math.isfinite(lowest) and math.isfinite(highest)):
-        raise ValueError("phases must be finite")
-    if lowest < 0.0 or highest >= 1.0:
-        phi = phi - np.floor(phi)
-        phi[phi >= 1.0] = 0.0  # tiny negative phases round up to exactly 1
-    return phi
-
-
-def _harmonic_sums(phi, w, block, unit, angle) -> np.ndarray:
-    """Σ w e^{2πikφ} for k = 1..harmonics over one chunk, in the scratch arrays.
-
-    u = exp(2πiφ) once per event; row k of the block holds w·u^(k+1) by the
-    recurrence row_k = row_(k-1)·u, so each harmonic's weighted sum is a plain row
-    sum. (No BLAS here: threaded BLAS on blocks this small is slower, not faster.)
-    """
-    m = phi.size
-    z = block[:, :m]
-    u = unit[:m]
-    a = angle[:m]
-    np.multiply(phi, _TWO_PI, out=a)
-    np.cos(a, out=u.real)
-    np.sin(a, out=u.imag)
-    if w is not None:
-        if not w.min() >= 0.0 or not math.isfinite(w.max()):
-            raise ValueError("weights must be finite and >= 0")
-        np.multiply(u.view(np.float64).reshape(m, 2), w[:, None],
-                    out=z[0].view(np.float64).reshape(m, 2))
-    for k in range(1, block.shape[0]):
-        np.multiply(z[k - 1], u, out=z[k])
-    return z.sum(axis=1)
-
-
-def _add_histogram(phi, w, bins, angle, hist_w, hist_w2) -> None:
-    """Add one chunk to the Σw and Σw² phase histograms (``hist_w2`` is ``hist_w``
-    itself when unweighted)."""
-    # φ·bins < bins for every float64 φ < 1 (the product's rounding error is below
-    # half an ulp of bins), so no clamp is needed
-    a = angle[:phi.size]
-    np.multiply(phi, bins, out=a)
-    index = a.astype(np.intp)
-    if w is None:
-        hist_w += np.bincount(index, minlength=bins)
-    else:
-        hist_w += np.bincount(index, weights=w, minlength=bins)
-        hist_w2 += np.bincount(index, weights=w * w, minlength=bins)
-
-
-def _accumulate(phases, weights, harmonics: int, bins: int):
-    """Harmonic sums and histograms of a whole batch, chunk by chunk (nothing committed)."""
-    chunk = min(_CHUNK, phases.size)
-    block, angle, spare = _scratch(harmonics)
-    unit = spare if weights is not None else block[0]
-    sums = np.zeros(harmonics, dtype=np.complex128)
-    hist_w = np.zeros(bins)
-    hist_w2 = np.zeros(bins) if weights is not None else hist_w
-    for start in range(0, phases.size, chunk):
-        phi = _reduced_phases(phases[start : start + chunk])
-        w = None if weights is None else weights[start : start + chunk]
-        sums += _harmonic_sums(phi, w, block, unit, angle)
-        _add_histogram(phi, w, bins, angle, hist_w, hist_w2)
-    return sums, hist_w, hist_w2
 
 
 class PhaseMoments:
@@ -195,24 +113,49 @@ class PhaseMoments:
         n = phases.size
         if n == 0:  # an empty batch changes nothing, not even ``weighted``
             return self
-        sums, hist_w, hist_w2 = _accumulate(phases, weights, self.harmonics, self.bins)
-        if weights is None:
-            sum_w = sum_w2 = float(n)
+        found = segment_sums(phases, weights, _ONE_SEGMENT, self.harmonics, self.bins)
+        self.add_segment(found, 0, weights is not None)
+        return self
+
+    @classmethod
+    def from_segment(cls, found: SegmentSums, row: int, weighted: bool) -> PhaseMoments:
+        """New moments holding row ``row`` of ``harmonicsums.segment_sums`` output (one
+        segment of events; ``weighted``: they came with weights)."""
+        if int(found.counts[row]) == 0:
+            return cls(found.sums.shape[1], found.hist_w.shape[1])
+        new = cls.__new__(cls)
+        new.harmonics, new.bins = found.sums.shape[1], found.hist_w.shape[1]
+        new.count = int(found.counts[row])
+        new.weighted = weighted
+        new.cos_sums = found.sums[row].real.copy()
+        new.sin_sums = found.sums[row].imag.copy()
+        new.hist_w = found.hist_w[row].copy()
+        new.hist_w2 = found.hist_w2[row].copy()
+        if weighted:
+            new.sum_w, new.sum_w2 = float(new.hist_w.sum()), float(new.hist_w2.sum())
         else:
+            new.sum_w = new.sum_w2 = float(new.count)
+        return new
+
+    def add_segment(self, found: SegmentSums, row: int, weighted: bool) -> None:
+        """Add row ``row`` of ``harmonicsums.segment_sums`` output (the kernel's sums of
+        one segment of events; ``weighted``: they came with weights)."""
+        count = int(found.counts[row])
+        if count == 0:  # an empty segment changes nothing, not even ``weighted``
+            return
+        hist_w, hist_w2 = found.hist_w[row], found.hist_w2[row]
+        if weighted:
             sum_w, sum_w2 = float(hist_w.sum()), float(hist_w2.sum())
-        # commit only when everything is in
-        self.cos_sums += sums.real
-        self.sin_sums += sums.imag
-        self.hist_w += hist_w
-        if weights is None:
-            self.hist_w2 += hist_w
         else:
-            self.hist_w2 += hist_w2
-            self.weighted = True
+            sum_w = sum_w2 = float(count)
+        self.cos_sums += found.sums[row].real
+        self.sin_sums += found.sums[row].imag
+        self.hist_w += hist_w
+        self.hist_w2 += hist_w2
+        self.weighted = self.weighted or weighted
         self.sum_w += sum_w
         self.sum_w2 += sum_w2
-        self.count += n
-        return self
+        self.count += count
 
     # -- combination -----------------------------------------------------------------------
 

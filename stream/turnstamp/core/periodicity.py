@@ -29,7 +29,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import special
 
 from .moments import MAX_HARMONICS, PhaseMoments
 from .significance import sigma_from_log_p
@@ -107,9 +106,10 @@ def chi2_even_log_sf(statistic: float, dof: int) -> float:
         if math.isnan(half):
             raise ValueError("statistic is NaN")
         return 0.0
-    terms = np.arange(dof // 2)
-    log_terms = terms * math.log(half) - special.gammaln(terms + 1.0)
-    return min(0.0, -half + float(special.logsumexp(log_terms)))
+    log_half = math.log(half)
+    log_terms = [j * log_half - math.lgamma(j + 1.0) for j in range(dof // 2)]
+    top = max(log_terms)
+    return min(0.0, -half + top + math.log(math.fsum(math.exp(t - top) for t in log_terms)))
 
 
 def _result(name, statistic, harmonics, log_p, moments, beyond=False) -> TestResult:

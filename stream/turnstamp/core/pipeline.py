@@ -7,29 +7,33 @@ Theory of operation
 1. value checks (``batch.check_values``): bad events are refused with a reason;
 2. time base: the site clock chain, then the instrument's scale to TT;
 3. per target (``targets``): the region cut (when the stream has directions),
-   barycentric time and phase (``tagger``), the recipe cuts (a bit per recipe),
-   and the moment accumulators of each recipe (``timebinned.TimeBinnedMoments``,
-   binned by TT event time so that windows and clock-check chunks are deterministic);
+   barycentric time and phase (``tagger``), the recipe cuts (a bit per recipe);
 4. accounting: every event is *tagged* (written to the archive for at least
-   one target), *filtered* (valid but selected by no target) or *rejected*.
+   one target), *filtered* (valid but selected by no target) or *rejected*;
+5. the moment accumulators of each recipe (``timebinned.TimeBinnedMoments``,
+   binned by TT event time so that windows and clock-check chunks are deterministic).
+
+Steps 1 to 4 and the recipes' share of step 5 are the pure per-batch functions of
+``chain``, which offline tagging runs as well; this object keeps what lasts between
+batches (statistics, the clock check's reservoir, the counters).
 
 The result is returned as plain columns; the shell writes them. Statistics are
 read with ``significance()``, ``profiles()`` and ``clock_check()`` whenever the
 shell's cadence asks (rows built by ``readout``; a missing or smeared pulse is
 refolded under alternative hypotheses by ``refold``). Nothing here reads a clock
-or touches a file, so feeding a night whole or split at any points gives
-identical outputs.
+or touches a file, so feeding a night whole or split at any points gives the
+same outputs (the statistics to float rounding).
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
-from typing import NamedTuple
 
 import numpy as np
 
-from .accounting import EXCLUDED_FROM_STATISTICS, Counters, FeedResult, QualityCounts
-from .batch import EventBatch, RejectCode, check_values, describe_rejects
+from .accounting import Counters, FeedResult, QualityCounts
+from .batch import EventBatch
+from .chain import ChainSettings, add_recipe_moments, tag_targets, time_base
 from .clock.chunks import ChunkOffset, chunk_offsets
 from .clock.diagnose import diagnose
 from .clock.verdict import ClockVerdict
@@ -38,13 +42,13 @@ from .readout import profile_row, significance_row
 from .refold import MIN_EVENTS, Reservoir, refold_scores, refolded_verdict
 from .stacking import STATE_VERSION, resume_problem
 from .tagger import TargetTagger
-from .targets import TargetSetup, cos_angular_distance
+from .targets import TargetSetup
 from .template import PulseTemplate
 from .templatefit import fit_offset
-from .timebase import NS_PER_S, ClockCorrection, LeapSecondTable, site_tt
+from .timebase import NS_PER_S, ClockCorrection, LeapSecondTable
 from .timebinned import TimeBinnedMoments
 
-__all__ = ["PipelineSettings", "TaggedRows", "Pipeline"]
+__all__ = ["PipelineSettings", "Pipeline"]
 
 
 @dataclass(frozen=True)
@@ -65,13 +69,8 @@ class PipelineSettings:
     tolerance_us: float | None = None
     reservoir_events: int = 1 << 18
     """Recent clock-recipe events kept for refolding under alternative hypotheses."""
-
-
-class TaggedRows(NamedTuple):
-    """What one target tagged in a batch: the batch rows, and their archive columns."""
-
-    rows: np.ndarray  # indices into the batch
-    columns: dict[str, np.ndarray]  # archive column name -> values for those rows
+    checked_columns: frozenset[str] | None = None
+    """Optional event columns whose values are checked (None: every one present)."""
 
 
 class Pipeline:
@@ -82,6 +81,8 @@ class Pipeline:
         if not targets or len(set(names)) != len(names):
             raise ValueError(f"targets must be non-empty with unique names: {names}")
         self.settings = settings
+        self.chain = ChainSettings(settings.leaps, settings.clock_chain, settings.earliest_ns,
+                                   settings.latest_ns, settings.checked_columns)
         self.targets = {t.name: t for t in targets}
         self.counters = Counters()
         self.quality = QualityCounts()  # tagged events with a quality problem, by flag
@@ -121,106 +122,29 @@ class Pipeline:
     # -- the hot path -------------------------------------------------------------
     def feed(self, batch: EventBatch) -> FeedResult:
         """Process one batch; see the module docstring."""
-        n = len(batch)
-        codes = check_values(batch, self.settings.earliest_ns, self.settings.latest_ns)
-        valid = codes == RejectCode.ACCEPTED
-        tt_ns, extra, flags = self._time_base(batch, valid)
-        # barycentre tables must cover every valid event for every target
-        covered = np.ones(n, bool)
-        for target in self.targets.values():
-            covered &= target.tagger.table.contains(tt_ns)
-        codes[valid & ~covered] = RejectCode.OUTSIDE_TABLE_COVERAGE
-        valid &= covered
-
-        tagged = np.zeros(n, bool)
-        archive: dict[str, dict[str, np.ndarray]] = {}
-        for target in self.targets.values():
-            found = self._tag_target(target, batch, valid, tt_ns, extra, flags)
-            if found is not None:
-                tagged[found.rows] = True
-                archive[target.name] = found.columns
-
-        refused = np.flatnonzero(codes)
-        reasons, details = describe_rejects(codes[refused])
-        valid_tt = tt_ns[valid]
-        result = FeedResult(
-            archive=archive, rejected_index=refused, rejected_reason=reasons,
-            rejected_detail=details, events=n, tagged=int(tagged.sum()),
-            filtered=int((valid & ~tagged).sum()),
-            first_tt_ns=int(valid_tt.min()) if valid_tt.size else None,
-            last_tt_ns=int(valid_tt.max()) if valid_tt.size else None)
+        result = tag_targets(batch, time_base(batch, self.chain), self.targets.values())
+        for name, columns in result.archive.items():
+            self.accumulate(name, columns["site_tt_ns"], columns["phase"], columns["weight"],
+                            columns["recipe_flags"], columns["quality_flags"],
+                            columns["barycentric_correction_s"])
         self.counters.add_feed(result)
         return result
 
-    def _time_base(self, batch: EventBatch, valid: np.ndarray):
-        """TT at the site (int64 ns) of the valid events, the sub-ns clock remainder (s;
-        None without a clock chain) and the Quality flags of the time base."""
-        n = len(batch)
-        s = self.settings
-        tt_ns = np.zeros(n, np.int64)
-        extra = np.zeros(n) if s.clock_chain else None
-        flags = np.zeros(n, np.uint32)
-        if valid.any():
-            tt_ns[valid], clock_extra, flags[valid] = site_tt(
-                batch.time_ns[valid], batch.time_scale, s.clock_chain, s.leaps)
-            if extra is not None:
-                extra[valid] = clock_extra
-        return tt_ns, extra, flags
-
-    def _tag_target(self, target, batch, valid, tt_ns, extra, flags) -> TaggedRows | None:
-        cos_distance = None
-        if batch.ra_deg is not None and batch.dec_deg is not None:
-            cos_distance = np.full(len(batch), -2.0)  # below any cut
-            cos_distance[valid] = cos_angular_distance(batch.ra_deg[valid], batch.dec_deg[valid],
-                                                       target.position)
-        rows = valid.copy()
-        if target.region_radius_deg is not None and cos_distance is not None:
-            rows &= cos_distance >= np.cos(np.radians(target.region_radius_deg))
-        index = np.flatnonzero(rows)
-        if index.size == 0:
-            return None
-        sub = batch if index.size == len(batch) else batch.take(index)
-        sub_distance = None if cos_distance is None else cos_distance[index]
-        result = target.tagger.tag(tt_ns[index], None if extra is None else extra[index])
-        quality = flags[index] | result.flags
-        recipe_flags = np.zeros(index.size, np.uint32)
-        for bit, recipe in enumerate(target.recipes):
-            recipe_flags[recipe.select(sub, sub_distance)] |= np.uint32(1 << bit)
-        weights = np.ones(index.size) if sub.weight is None else sub.weight
-        self.accumulate(target.name, tt_ns[index], result.phase, weights, recipe_flags, quality,
-                        result.correction_s)
-        return TaggedRows(index, {
-            "event_id": sub.event_id,
-            "site_tt_ns": tt_ns[index],
-            "barycentric_tdb_ns": result.barycentric_tdb_ns,
-            "barycentric_correction_s": result.correction_s,
-            "phase": result.phase,
-            "pulse_number": result.pulse_number,
-            "weight": weights,
-            "recipe_flags": recipe_flags,
-            "model_index": result.model_index.astype(np.int32),  # into tagger.model_ids
-            "quality_flags": quality,
-        })
-
     def accumulate(self, name: str, tt_ns, phase, weight, recipe_flags, quality, correction_s):
-        """Add tagged events to a target's statistics: each recipe takes the rows with
-        its bit set, except those tagged outside their model's validity (counted in
-        ``quality`` with every other flag). Used by ``feed`` and to replay archive
-        rows after a restart."""
+        """Add tagged events to a target's statistics (``chain.add_recipe_moments``):
+        each recipe takes the rows with its bit set, except those tagged outside their
+        model's validity (counted in ``quality`` with every other flag). Used by
+        ``feed`` and to replay archive rows after a restart."""
         target = self.targets[name]
         self.quality.add(name, quality)
-        usable = (quality & EXCLUDED_FROM_STATISTICS) == 0
-        for bit, (recipe, moments) in enumerate(zip(target.recipes, self.moments[name],
-                                                    strict=True)):
-            chosen = usable & ((recipe_flags >> np.uint32(bit)) & 1).astype(bool)
-            if not chosen.any():
-                continue
-            w = weight[chosen] if recipe.use_weights else None
-            moments.update(tt_ns[chosen], phase[chosen], w)
-            if bit == target.clock_recipe:
-                self.reservoirs[name].add(tt_ns[chosen], correction_s[chosen],
-                                          weight[chosen] if recipe.use_weights
-                                          else np.ones(int(chosen.sum())))
+        chosen = add_recipe_moments(self.moments[name], target.recipes, tt_ns, phase, weight,
+                                    recipe_flags, quality)
+        rows = chosen[target.clock_recipe]
+        if rows is not None:
+            recipe = target.recipes[target.clock_recipe]
+            self.reservoirs[name].add(tt_ns[rows], correction_s[rows],
+                                      weight[rows] if recipe.use_weights
+                                      else np.ones(len(tt_ns[rows])))
 
     # -- statistics ---------------------------------------------------------------
     @property

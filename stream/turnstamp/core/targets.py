@@ -9,13 +9,16 @@ function is evaluated per event.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from .barycentre import SkyPosition
 from .batch import EventBatch
 from .tagger import TargetTagger
-from .template import PulseTemplate
+
+if TYPE_CHECKING:
+    from .template import PulseTemplate
 
 __all__ = ["Recipe", "TargetSetup", "cos_angular_distance"]
 
@@ -50,6 +53,15 @@ class Recipe:
                 return np.zeros(len(batch), bool)
             keep &= mask
         return keep
+
+    def columns(self) -> frozenset[str]:
+        """The optional event columns this recipe's cuts and weights read."""
+        used = {"energy_kev": self.energy_min_kev is not None or self.energy_max_kev is not None,
+                "ra_deg": self.max_distance_deg is not None,
+                "dec_deg": self.max_distance_deg is not None,
+                "score": self.min_score is not None, "weight": self.use_weights,
+                "telescope_mask": self.telescopes_any is not None}
+        return frozenset(name for name, needed in used.items() if needed)
 
     # Each cut: None when disabled, False when the stream lacks its column, else a mask.
 
@@ -105,6 +117,11 @@ class TargetSetup:
     def name(self) -> str:
         """The target's name (that of its tagger)."""
         return self.tagger.name
+
+    def columns(self) -> frozenset[str]:
+        """The optional event columns its region cut and recipes read."""
+        region = {"ra_deg", "dec_deg"} if self.region_radius_deg is not None else set()
+        return frozenset(region.union(*(recipe.columns() for recipe in self.recipes)))
 
 
 def cos_angular_distance(ra_deg, dec_deg, position: SkyPosition) -> np.ndarray:

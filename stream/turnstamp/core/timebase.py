@@ -117,6 +117,13 @@ class LeapSecondTable:
 
     def tai_minus_utc_ns(self, utc_ns: np.ndarray) -> np.ndarray:
         """TAI - UTC (int64 ns) at UTC labels; rows before the table get its first value."""
+        utc_ns = np.asarray(utc_ns)
+        if utc_ns.size > 1:  # a batch between two leap seconds, the usual case: one lookup
+            ends = np.searchsorted(self._start_utc_ns, [utc_ns.min(), utc_ns.max()],
+                                   side="right") - 1
+            if ends[0] == ends[1]:
+                step = self.tai_minus_utc_s[max(int(ends[0]), 0)] * NS_PER_S
+                return np.full(utc_ns.shape, step, dtype=np.int64)
         row = np.searchsorted(self._start_utc_ns, utc_ns, side="right") - 1
         return self.tai_minus_utc_s[np.maximum(row, 0)] * NS_PER_S
 
@@ -128,7 +135,10 @@ class LeapSecondTable:
 
 
 def _utc_to_tai(ns, leaps):
-    flags = np.where(ns >= leaps.expires_ns, Quality.LEAP_TABLE_EXPIRED, 0).astype(np.uint32)
+    if ns.size and ns.max() < leaps.expires_ns:
+        flags = np.zeros(ns.shape, np.uint32)
+    else:
+        flags = np.where(ns >= leaps.expires_ns, Quality.LEAP_TABLE_EXPIRED, 0).astype(np.uint32)
     return ns + leaps.tai_minus_utc_ns(ns), flags
 
 
@@ -274,8 +284,11 @@ def site_tt(readings_ns, scale: Scale | str, clock_chain, leaps: LeapSecondTable
     flags : uint32 array
         Quality bits of the clock chain and the scale conversion.
     """
-    flags = np.zeros(np.shape(readings_ns), np.uint32)
     extra_s = np.zeros(np.shape(readings_ns))
+    if not clock_chain:
+        tt_ns, flags = to_tt(readings_ns, scale, leaps)
+        return tt_ns, extra_s, flags
+    flags = np.zeros(np.shape(readings_ns), np.uint32)
     for link in clock_chain:
         readings_ns, extra_s, link_flags = link.apply(readings_ns, extra_s)
         flags |= link_flags

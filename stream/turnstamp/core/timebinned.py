@@ -3,24 +3,27 @@
 :class:`TimeBinnedMoments` keeps one :class:`~turnstamp.core.moments.PhaseMoments`
 per interval of event time, so that any window, the night's total and the chunks of
 the clock check cost O(number of intervals), never a pass over the events. Partials
-add, so objects filled separately (by batch, worker or night) merge exactly.
+add, so objects filled separately (by batch, worker or night) merge exactly. A batch
+is grouped by interval in one vectorised pass and summed by one call of the
+moments' kernel (``harmonicsums.segment_sums``), however many intervals it spans.
 
 The module does no I/O, holds no clock and imports neither zmq nor pyarrow.
 """
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
 
 from turnstamp.errors import InputError
 
+from .harmonicsums import shared_segment_sums
 from .moments import DEFAULT_BINS, MAX_HARMONICS, PhaseMoments, positive_int
 from .momentstate import STATE_VERSION, check_keys, state_int
 
-__all__ = ["TimeBinnedMoments"]
+__all__ = ["TimeBinnedMoments", "update_together"]
 
 
 class TimeBinnedMoments:
@@ -54,30 +57,40 @@ class TimeBinnedMoments:
     # -- accumulation ----------------------------------------------------------------------
 
     def _slot(self, index: int) -> PhaseMoments:
-        if self._expired_through is not None and index <= self._expired_through:
-            return self._expired
-        moments = self._intervals.get(index)
+        moments = self._held(index)
         if moments is None:
             moments = self._intervals[index] = PhaseMoments(self.harmonics, self.bins)
         return moments
 
+    def _held(self, index: int) -> PhaseMoments | None:
+        """The moments interval ``index`` adds to (the expired total for an expired one),
+        None when it has none yet."""
+        if self._expired_through is not None and index <= self._expired_through:
+            return self._expired
+        return self._intervals.get(index)
+
     def update(self, times_ns, phases, weights=None) -> TimeBinnedMoments:
         """Add events at ``times_ns`` (int64 ns) with ``phases`` and optional ``weights``.
 
-        Any order works; a batch that is time-sorted (the usual case, one or two
-        intervals) is split without sorting. Returns ``self``.
+        Any order works. The events are grouped by interval in one vectorised pass
+        (a time-sorted batch, the usual case, without sorting) and summed per
+        interval by one call of the moments' kernel. Atomic: on a bad phase or
+        weight it raises ``ValueError`` and changes nothing. Returns ``self``.
         """
-        times, phases, weights = _timed_event_arrays(times_ns, phases, weights)
-        if times.size == 0:
-            return self
-        groups, phases, weights = _interval_groups(times // self.interval_ns, phases, weights)
-        for interval, part in groups:
-            self._slot(interval).update(phases[part], None if weights is None else weights[part])
-        newest = int(times.max())
+        update_together([self], times_ns, phases, [weights])
+        return self
+
+    def _add_found(self, intervals: list[int], found, weighted: bool, newest: int) -> None:
+        """Add the kernel's per-interval sums (row i: interval ``intervals[i]``)."""
+        for row, interval in enumerate(intervals):
+            held = self._held(interval)
+            if held is None:
+                self._intervals[interval] = PhaseMoments.from_segment(found, row, weighted)
+            else:
+                held.add_segment(found, row, weighted)
         if self.latest_ns is None or newest > self.latest_ns:
             self.latest_ns = newest
         self._prune()
-        return self
 
     def _prune(self) -> None:
         if self.retain_ns is None or self.latest_ns is None:
@@ -192,7 +205,11 @@ class TimeBinnedMoments:
         if other._expired_through is not None:
             self._expire_through(other._expired_through)
         for index, part in other._intervals.items():
-            self._slot(index)._add_in_place(part)
+            held = self._held(index)
+            if held is None:
+                self._intervals[index] = part.copy()
+            else:
+                held._add_in_place(part)
         if other.latest_ns is not None and (self.latest_ns is None
                                             or other.latest_ns > self.latest_ns):
             self.latest_ns = other.latest_ns
@@ -295,9 +312,9 @@ def _matching_moments(state, field, harmonics, bins) -> PhaseMoments:
     return moments
 
 
-def _timed_event_arrays(times_ns, phases, weights):
-    """Times (int64 ns), phases and weights as vectors of one length, values checked
-    before any interval is touched, so that a bad batch changes nothing."""
+def _timed_event_arrays(times_ns, phases, weight_sets):
+    """Times (int64 ns), phases and each weight set as vectors of one length (their
+    values are checked by the kernel before any interval is touched)."""
     times = np.asarray(times_ns).reshape(-1)
     if times.dtype.kind not in "iu":
         raise TypeError(f"times_ns must be integer nanoseconds, got dtype {times.dtype}")
@@ -305,32 +322,75 @@ def _timed_event_arrays(times_ns, phases, weights):
     phases = np.ascontiguousarray(phases, dtype=np.float64).reshape(-1)
     if phases.shape != times.shape:
         raise ValueError(f"phases has {phases.size} values but times_ns has {times.size}")
-    if weights is not None:
-        weights = np.ascontiguousarray(weights, dtype=np.float64).reshape(-1)
-        if weights.shape != times.shape:
-            raise ValueError(f"weights has {weights.size} values but times_ns has {times.size}")
-    if times.size and not np.isfinite(phases).all():
-        raise ValueError("phases must be finite")
-    if times.size and weights is not None \
-            and not (np.isfinite(weights).all() and (weights >= 0).all()):
-        raise ValueError("weights must be finite and >= 0")
+    weights = []
+    for w in weight_sets:
+        if w is not None:
+            w = np.ascontiguousarray(w, dtype=np.float64).reshape(-1)
+            if w.shape != times.shape:
+                raise ValueError(f"weights has {w.size} values but times_ns has {times.size}")
+        weights.append(w)
     return times, phases, weights
 
 
-def _interval_groups(index, phases, weights):
-    """(interval index, slice) groups of a batch, and the phases and weights in that order.
+def update_together(binned: Sequence[TimeBinnedMoments], times_ns, phases,
+                    weight_sets: Sequence) -> None:
+    """Add the same events to several accumulators of one shape, each with its own
+    weights (None: unit weights), e.g. the recipes of a target that take the same
+    rows: the grouping by interval and the harmonic computation are shared
+    (``harmonicsums.shared_segment_sums``). Atomic, like ``update``.
 
-    A batch within one interval is one group; a time-sorted batch is cut where the
-    index changes; any other is first sorted (stably) by interval.
+    Parameters
+    ----------
+    binned : sequence of TimeBinnedMoments
+        Same interval, harmonics and bins.
+    times_ns, phases
+        As for ``TimeBinnedMoments.update``.
+    weight_sets : sequence of (array_like or None)
+        One per accumulator.
     """
-    first = int(index[0])
-    if index.size == 1 or (int(index[-1]) == first and (index == first).all()):
-        return [(first, slice(None))], phases, weights
-    if not (np.diff(index) >= 0).all():
+    shape = {(b.interval_ns, b.harmonics, b.bins) for b in binned}
+    if len(shape) != 1 or len(weight_sets) != len(binned):
+        raise ValueError(f"accumulators of one shape and one weight set each, got {shape} "
+                         f"and {len(weight_sets)} weight sets for {len(binned)}")
+    times, phases, weights = _timed_event_arrays(times_ns, phases, weight_sets)
+    if times.size == 0:
+        return
+    first = binned[0]
+    intervals, starts, order = _interval_segments(times, first.interval_ns)
+    if order is not None:
+        phases = phases[order]
+        weights = [None if w is None else w[order] for w in weights]
+    found = shared_segment_sums(phases, weights, starts, first.harmonics, first.bins)
+    newest = int(times.max())
+    for accumulator, sums, w in zip(binned, found, weights, strict=True):
+        accumulator._add_found(intervals.tolist(), sums, w is not None, newest)
+
+
+def _interval_segments(times, interval_ns):
+    """Intervals present (ascending), the first event of each, and the order that
+    sorts the events by interval (None when they are in order already).
+
+    A time-sorted batch (the usual case) is cut at the interval boundaries found by
+    binary search (no pass computing every event's interval); any other is first
+    sorted (stably) by interval.
+    """
+    if times.size > 1 and not (times[1:] >= times[:-1]).all():
+        index = times // interval_ns
         order = np.argsort(index, kind="stable")
-        index, phases = index[order], phases[order]
-        if weights is not None:
-            weights = weights[order]
-    bounds = [0, *(np.flatnonzero(np.diff(index)) + 1).tolist(), index.size]
-    groups = [(int(index[a]), slice(a, b)) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
-    return groups, phases, weights
+        index = index[order]
+        starts = np.concatenate([_FIRST, np.flatnonzero(index[1:] != index[:-1]) + 1])
+        return index[starts], starts, order
+    first, last = int(times[0]) // interval_ns, int(times[-1]) // interval_ns
+    if first == last:
+        return np.array([first]), _FIRST, None
+    if last - first > times.size:  # sparse over a long span: cut where the index changes
+        index = times // interval_ns
+        starts = np.concatenate([_FIRST, np.flatnonzero(index[1:] != index[:-1]) + 1])
+        return index[starts], starts, None
+    intervals = np.arange(first, last + 1)
+    starts = np.concatenate([_FIRST, np.searchsorted(times, intervals[1:] * interval_ns)])
+    filled = np.diff(starts, append=times.size) > 0
+    return intervals[filled], starts[filled], None
+
+
+_FIRST = np.zeros(1, dtype=np.intp)

@@ -3,8 +3,8 @@
 The table of the format specification (:mod:`turnstamp.wire.message`) as data:
 one :class:`ColumnRule` per column of :data:`turnstamp.files.schemas.EVENTS`. The
 decoder checks a body's schema against it and converts each column; event files
-for offline tagging go through the same rules (``decode.batch_from_record``), and
-the encoder converts a producer's arrays with it.
+for offline tagging go through the same rules (``batch_from_record``), and the
+encoder converts a producer's arrays with it.
 """
 
 from __future__ import annotations
@@ -14,14 +14,15 @@ from typing import Any, NamedTuple
 
 import numpy as np
 import pyarrow as pa
-import pyarrow.compute as pc
 
-from ..core.batch import MISSING_ID, MISSING_TIME, OPTIONAL_COLUMNS
+from ..core.batch import MISSING_ID, MISSING_TIME, OPTIONAL_COLUMNS, EventBatch
+from ..core.timebase import Scale
 from ..errors import RejectReason
 from ..files.schemas import EVENTS
 from .message import WIRE_VERSION, MessageContext, clipped, shown
 
-__all__ = ["ColumnRule", "COLUMN_RULES", "arrow_kind", "check_schema", "column_to_numpy"]
+__all__ = ["ColumnRule", "COLUMN_RULES", "arrow_kind", "check_schema", "column_to_numpy",
+           "event_batch", "batch_from_record"]
 
 
 class ColumnRule(NamedTuple):
@@ -139,13 +140,15 @@ def column_to_numpy(name: str, column: pa.Array, context: MessageContext) -> np.
     if column.type != rule.arrow_type:
         # Integers to float64 round beyond 2**53, deliberately; every other cast is exact.
         rounding = kind in ("int", "uint") and rule.arrow_type == pa.float64()
-        column = pc.cast(column, rule.arrow_type, safe=not rounding)
+        column = column.cast(rule.arrow_type, safe=not rounding)
     if column.null_count:
         column = column.fill_null(pa.scalar(rule.fill, rule.arrow_type))
     return column.to_numpy(zero_copy_only=True)
 
 
 def _refuse_negative(name: str, column: pa.Array, context: MessageContext) -> None:
+    import pyarrow.compute as pc  # only here: a quick start for event files of uint64 ids
+
     low = pc.min(column).as_py()
     if low is not None and low < 0:
         values = column.fill_null(0).to_numpy(zero_copy_only=False)
@@ -153,3 +156,32 @@ def _refuse_negative(name: str, column: pa.Array, context: MessageContext) -> No
         raise context.refuse(RejectReason.BAD_SCHEMA,
                              f"{name} must be >= 0 to fit uint64, got {int(values[row])} "
                              f"in row {row} ({column.type} column)")
+
+
+def event_batch(record: pa.RecordBatch | None, schema: pa.Schema, positions: dict[str, int],
+                source: str, sequence: int, time_scale: Scale,
+                context: MessageContext) -> EventBatch:
+    """The ``EventBatch`` of a record batch whose schema passed :func:`check_schema`
+    (``positions`` from it); None for a body without rows."""
+    columns = {}
+    for name, index in positions.items():
+        column = (record.column(index) if record is not None
+                  else pa.array([], type=schema.field(index).type))
+        columns[name] = column_to_numpy(name, column, context)
+    return EventBatch(source=source, sequence=sequence, time_scale=time_scale, **columns)
+
+
+def batch_from_record(record: pa.RecordBatch, *, source: str, sequence: int,
+                      time_scale: Scale) -> tuple[EventBatch, list[str]]:
+    """An ``EventBatch`` from an Arrow record batch with the wire format's columns
+    (used for event files: the same types, casts and null rules as messages).
+
+    Raises
+    ------
+    WireError
+        ``bad_schema`` naming the column when a column is missing or mistyped.
+    """
+    context = MessageContext(source=source, sequence=sequence, events=record.num_rows)
+    positions, notes = check_schema(record.schema, context)
+    return event_batch(record, record.schema, positions, source, sequence, time_scale,
+                       context), notes

@@ -33,8 +33,7 @@ from ..core.batch import EventBatch
 from ..core.timebase import Scale
 from ..errors import ArrowMetadataError, RejectReason, WireError
 from ..files.arrow_metadata import uses_compression
-from .columns import check_schema, column_to_numpy
-from .encode import scale_name
+from .columns import check_schema, event_batch
 from .message import (
     FORMAT_NAME,
     MAX_HEADER_BYTES,
@@ -45,7 +44,7 @@ from .message import (
     shown,
 )
 
-__all__ = ["DecodedMessage", "decode_message", "batch_from_record"]
+__all__ = ["DecodedMessage", "decode_message"]
 
 MAX_IPC_MESSAGES = 1000
 """Most IPC messages (schema, dictionaries and batches) one body may hold."""
@@ -132,28 +131,11 @@ def decode_message(frames: Sequence[bytes | zmq.Frame | memoryview], *, has_topi
     positions, notes = check_schema(schema, context)
     if record is not None:
         _validate(record, context)
-    batch = _batch(record, schema, positions, header.source, header.sequence,
-                   Scale(header.time_scale), context)
+    batch = event_batch(record, schema, positions, header.source, header.sequence,
+                        Scale(header.time_scale), context)
     return DecodedMessage(header=header, batch=batch, notes=notes,
                           message_bytes=message_bytes,
                           topic=bytes(views[0]) if has_topic else None)
-
-
-def batch_from_record(record: pa.RecordBatch, *, source: str, sequence: int,
-                      time_scale: Scale | str) -> tuple[EventBatch, list[str]]:
-    """An ``EventBatch`` from an Arrow record batch with the wire format's columns
-    (used for event files: the same types, casts and null rules as messages).
-
-    Raises
-    ------
-    WireError
-        ``bad_schema`` naming the column when a column is missing or mistyped.
-    """
-    context = MessageContext(source=source, sequence=sequence, events=record.num_rows)
-    positions, notes = check_schema(record.schema, context)
-    batch = _batch(record, record.schema, positions, source, sequence,
-                   Scale(scale_name(time_scale)), context)
-    return batch, notes
 
 
 # ----------------------------------------------------------------------------------------
@@ -337,14 +319,3 @@ def _validate(record: pa.RecordBatch, context: MessageContext) -> None:
     except pa.ArrowException as exc:
         raise context.refuse(RejectReason.MALFORMED_MESSAGE,
                              f"body is not a valid Arrow IPC stream: {exc}") from None
-
-
-def _batch(record: pa.RecordBatch | None, schema: pa.Schema, positions: dict[str, int],
-           source: str, sequence: int, time_scale: Scale,
-           context: MessageContext) -> EventBatch:
-    columns = {}
-    for name, index in positions.items():
-        column = (record.column(index) if record is not None
-                  else pa.array([], type=schema.field(index).type))
-        columns[name] = column_to_numpy(name, column, context)
-    return EventBatch(source=source, sequence=sequence, time_scale=time_scale, **columns)

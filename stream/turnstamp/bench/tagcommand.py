@@ -1,0 +1,128 @@
+"""The whole ``turnstamp tag`` command, file to file, as a user runs it.
+
+Each run is a child process (``turnstamp tag`` through its ``main``) timed by the
+wall clock from its start to its exit, start-up included; its CPU time comes from
+the kernel's accounting of that child (``os.wait4``) and its peak resident memory
+from its own ``VmHWM`` as it exits: ``ru_maxrss`` would count this process's peak,
+which a child inherits when it is started by fork and exec. Inputs are
+one night of ``event_id`` + ``time_ns`` in Arrow IPC (batches of 2^20 rows) and
+Parquet (row groups of 2^20 rows); barycentre tables come from a cache warmed by
+a first small run, as on a user's second night. Start-up is the wall clock of a
+run on a 1 000-event file. The children may write Python's bytecode cache (an
+installed package has one), whatever ``PYTHONDONTWRITEBYTECODE`` says here.
+
+``tag`` computes on one thread; reading the next batch and writing the last one
+run on two helper threads that spend their time in pyarrow and the file system
+(with the interpreter lock released). The Arrow IPC run is repeated held to one
+CPU (``tag_arrow_one_cpu_events_per_s``) to show what that overlap is worth.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["bench_tag_command"]
+
+_ROWS_PER_BATCH = 1 << 20
+_ENV = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
+_CHILD = ("import sys\n"
+          "from turnstamp.commands.main import main\n"
+          "status = main(sys.argv[1:])\n"
+          "with open('/proc/self/status') as own:\n"
+          "    sys.stderr.write(''.join(l for l in own if l.startswith('VmHWM')))\n"
+          "sys.exit(status)\n")
+_NIGHT_UTC = "2026-12-02T00:00:00"
+
+
+def _write_events(folder: Path, n: int) -> dict[str, Path]:
+    """One night of ``n`` events (10 hours, sorted) as Arrow IPC and as Parquet."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from ..core.timebase import NS_PER_S, parse_instant
+
+    start = parse_instant(_NIGHT_UTC)
+    times = np.sort(np.random.default_rng(11).integers(start, start + 10 * 3600 * NS_PER_S, n))
+    table = pa.table({"event_id": np.arange(n, dtype=np.uint64), "time_ns": times})
+    paths = {"arrow": folder / f"events-{n}.arrow", "parquet": folder / f"events-{n}.parquet"}
+    with pa.OSFile(str(paths["arrow"]), "wb") as sink, \
+            pa.ipc.new_file(sink, table.schema) as writer:
+        writer.write_table(table, max_chunksize=_ROWS_PER_BATCH)
+    pq.write_table(table, paths["parquet"], row_group_size=_ROWS_PER_BATCH)
+    return paths
+
+
+def _one_cpu() -> None:
+    """In the child before it runs: keep to one CPU."""
+    os.sched_setaffinity(0, {min(os.sched_getaffinity(0))})
+
+
+def _run_tag(events: Path, out: Path, site: Path, cache: Path, one_cpu: bool = False) -> dict:
+    """One ``tag`` child: wall seconds, CPU seconds, peak RSS (MB) and its summary."""
+    from ..demo import data_file
+
+    command = [sys.executable, "-c", _CHILD, "tag", str(events), "--model",
+               data_file("lantern.toml"), "--site", str(site), "--out", str(out),
+               "--table-cache", str(cache), "--json", "--force"]
+    with tempfile.TemporaryFile() as errors:
+        started = time.perf_counter()
+        child = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=errors, env=_ENV,
+                                 preexec_fn=_one_cpu if one_cpu else None)
+        stdout = child.stdout.read()  # the JSON summary, printed at the end
+        _, status, usage = os.wait4(child.pid, 0)  # reaps the child: its own rusage
+        seconds = time.perf_counter() - started
+        child.returncode = os.waitstatus_to_exitcode(status)
+        child.stdout.close()
+        errors.seek(0)
+        said = errors.read().decode()
+        if child.returncode != 0:
+            raise RuntimeError(f"tag failed ({child.returncode}): {said}")
+    peak = [line.split()[1] for line in said.splitlines() if line.startswith("VmHWM")]
+    return {"seconds": seconds, "cpu_s": usage.ru_utime + usage.ru_stime,
+            "rss_mb": int(peak[-1]) / 1024, "summary": json.loads(stdout)}
+
+
+def bench_tag_command(n: int = 10**7) -> dict:
+    """Figures of the ``tag`` command on ``n`` events in both formats (see the module
+    docstring): events/s by the wall clock, peak RSS beyond the input's size."""
+    from ..demo import site_toml
+
+    out: dict = {"tag_events": n}
+    with tempfile.TemporaryDirectory(prefix="turnstamp-bench-tag-") as tmp:
+        folder = Path(tmp)
+        site = folder / "site.toml"
+        site.write_text(site_toml())
+        cache = folder / "tables"
+        small = _write_events(folder, 1000)["arrow"]
+        first = _run_tag(small, folder / "small.arrow", site, cache)  # builds the tables
+        warm = min((_run_tag(small, folder / "small.arrow", site, cache) for _ in range(3)),
+                   key=lambda run: run["seconds"])
+        out["tag_first_run_s"] = first["seconds"]
+        out["tag_startup_s"] = warm["seconds"]
+        for kind, events in _write_events(folder, n).items():
+            size_mb = events.stat().st_size / 2**20
+            run = _run_tag(events, folder / f"tagged-{kind}.arrow", site, cache)
+            (folder / f"tagged-{kind}.arrow").unlink()  # room on disk for the next
+            assert run["summary"]["tagged"] == n, run["summary"]
+            out[f"tag_{kind}_events_per_s"] = n / run["seconds"]
+            out[f"tag_{kind}_seconds"] = run["seconds"]
+            out[f"tag_{kind}_cpu_s"] = run["cpu_s"]
+            out[f"tag_{kind}_input_mb"] = size_mb
+            out[f"tag_{kind}_rss_mb"] = run["rss_mb"]
+            out[f"tag_{kind}_rss_over_input_mb"] = run["rss_mb"] - size_mb
+            if kind == "arrow" and hasattr(os, "sched_setaffinity"):
+                # the same, held to one CPU: no overlap of reading and writing with tagging
+                run = _run_tag(events, folder / "one-cpu.arrow", site, cache, one_cpu=True)
+                (folder / "one-cpu.arrow").unlink()
+                out["tag_arrow_one_cpu_events_per_s"] = n / run["seconds"]
+            events.unlink()
+    out["tag_events_per_s"] = min(out["tag_arrow_events_per_s"], out["tag_parquet_events_per_s"])
+    return out
