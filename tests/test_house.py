@@ -47,6 +47,7 @@ ALLOWED = {
     "config": {"errors", "files"},
     "assemble": {"config", "core", "errors", "files", "__init__"},
     "tagging": {"assemble", "config", "core", "errors", "files", "wire"},
+    "archiveclock": {"assemble", "config", "core", "errors", "files"},
     "service": {"assemble", "config", "core", "errors", "files", "wire", "__init__"},
     "views": {"core", "errors", "files", "__init__"},
     "demo": {"assemble", "config", "core", "errors", "files", "views", "wire"},

@@ -51,7 +51,7 @@ def damour_deruelle_oracle(orbit: RelativisticOrbit, t: float):
     """
     mpmath.mp.dps = 40
     e, x = mpmath.mpf(orbit.eccentricity), mpmath.mpf(orbit.projected_semi_major_axis_lt_s)
-    mean = 2 * mpmath.pi * mpmath.mpf(t) / (mpmath.mpf(orbit.orbital_period_days) * 86400)
+    mean = 2 * mpmath.pi * mpmath.mpf(t) / (mpmath.mpf(str(orbit.orbital_period_days)) * 86400)
     u = mpmath.findroot(lambda v: v - e * mpmath.sin(v) - mean, mean)
     true_anomaly = 2 * mpmath.atan(mpmath.sqrt((1 + e) / (1 - e)) * mpmath.tan(u / 2))
     w = mpmath.radians(mpmath.mpf(orbit.periastron_longitude_deg))

@@ -65,7 +65,7 @@ def oracle_phase(model: SpinModel, tdb_ns: int, extra_s: float) -> mp.mpf:
 
 def keplerian_delay(orbit, t):
     """Blandford & Teukolsky (1976, ApJ 205, 580) delay written out in mpmath."""
-    period = mp.mpf(orbit.orbital_period_days) * 86400
+    period = mp.mpf(str(orbit.orbital_period_days)) * 86400
     mean = 2 * mp.pi * (t - mp.mpf(str(orbit.epoch_tdb_seconds))) / period
     e, x = mp.mpf(orbit.eccentricity), mp.mpf(orbit.projected_semi_major_axis_lt_s)
     anomaly = mp.findroot(lambda u: u - e * mp.sin(u) - mean, mean)

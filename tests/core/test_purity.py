@@ -5,12 +5,13 @@ import sys
 
 # Every module of the core, so that one missed by the discovery below still fails here.
 CORE_MODULES = [
-    "accounting", "barycentre", "batch", "binarydelay", "chain", "clock", "clock.chunks",
-    "clock.diagnose", "clock.mistakes", "clock.rating", "clock.series", "clock.smear",
+    "accounting", "barycentre", "batch", "binarydelay", "chain", "clock", "clock.apparent",
+    "clock.check", "clock.chunks", "clock.diagnose", "clock.joint", "clock.mistakes",
+    "clock.numbers", "clock.rating", "clock.robust", "clock.series", "clock.smear",
     "clock.verdict", "clock.wobble", "clock.wording", "correctiontable", "cycles", "earth",
     "emission", "flags", "harmonicsums", "kepler", "moments", "momentstate", "orbit", "peaks",
-    "periodicity", "phase", "pipeline", "profile", "readout", "refold", "significance",
-    "simulate", "spin", "stacking", "tagger", "targets", "template", "templatefit",
+    "periodicity", "phase", "pipeline", "profile", "readout", "refold", "significance", "simulate",
+    "spin", "stacking", "tagger", "targets", "template", "templatefit", "templatelikelihood",
     "templatenoise", "timebase", "timebinned", "twofloat",
 ]
 

@@ -23,12 +23,21 @@ def add_parser(subparsers) -> None:
                    help="skip the whole tag command, file to file (default: run it)")
     p.add_argument("--tag-events", type=int, metavar="N",
                    help="events in the tag command's files (default 1e7, 1e6 with --quick)")
+    p.add_argument("--clock", action="store_true",
+                   help="instead: the clock verdict's statistics (offset efficiency and "
+                        "coverage, false alarms on clean nights, reach); default off")
     p.set_defaults(run=run)
 
 
 def run(args) -> int:
     import json
 
+    if args.clock:
+        from ..bench.clock import bench_clock, clock_lines
+
+        results = bench_clock(quick=args.quick)
+        print(json.dumps(results, indent=2) if args.json else "\n".join(clock_lines(results)))
+        return 0
     from ..bench.suite import run_benchmarks, summary_lines
 
     results = run_benchmarks(quick=args.quick, service=args.service, soak_s=args.soak,

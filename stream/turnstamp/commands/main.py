@@ -22,6 +22,7 @@ from ..errors import ArrowFileError, InputError, ReportError
 from . import (
     bench,
     check,
+    clock,
     demo,
     inspect_output,
     model,
@@ -39,8 +40,8 @@ from .common import HelpFormatter
 
 __all__ = ["COMMANDS", "build_parser", "main"]
 
-COMMANDS = (demo, run, check, simulate, tag, model, table, inspect_output, report, watch, stack,
-            template, bench, schemas)
+COMMANDS = (demo, run, check, simulate, tag, clock, model, table, inspect_output, report, watch,
+            stack, template, bench, schemas)
 """Command modules, in the order ``turnstamp --help`` lists them."""
 
 

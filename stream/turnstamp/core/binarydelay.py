@@ -6,8 +6,11 @@ The formulas of the three orbit kinds are given in :mod:`turnstamp.core.orbit`;
 :class:`BinaryDelay` compiles a parameter model once (seconds and radians) and
 evaluates arrays of times without Python loops over events.
 
-Numerics. The orbital phase is formed from ``fmod(t, P_b)``, which is exact, so phase
-precision is set by the time argument, not by the number of orbits elapsed. Kepler's
+Numerics. The orbital phase is formed in extended precision: the exact decimal period
+is held as a double-double (P_hi + P_lo), the whole orbits n = rint(t/P_hi) and the
+remainder t − n·P_hi − n·P_lo is formed with an exact product and sum (Shewchuk 1997;
+:mod:`turnstamp.core.twofloat`), so phase precision is set by the time argument, not by
+the number of orbits elapsed nor by the period's binary representation. Kepler's
 equation is solved in :mod:`turnstamp.core.kepler`.
 
 Emission time. Photon arrival times are known and the delay is a function of the
@@ -30,6 +33,7 @@ from .orbit import (
     OrbitModel,
     RelativisticOrbit,
 )
+from .twofloat import dd_from_decimal, two_prod, two_sum
 
 __all__ = [
     "DelayComponents",
@@ -95,7 +99,8 @@ class BinaryDelay:
             raise TypeError(f"expected an orbit parameter model, got {type(params).__name__}")
         self.params = params
         self.kind: str = params.kind
-        self.period_s = params.orbital_period_days * _SECONDS_PER_DAY
+        self.period_hi, self.period_lo = dd_from_decimal(params.period_seconds)
+        self.period_s = self.period_hi + self.period_lo
         self.period_derivative = params.orbital_period_derivative
         self.semi_major_axis_s = params.projected_semi_major_axis_lt_s
         self.eccentricity = params.eccentricity
@@ -130,15 +135,16 @@ class BinaryDelay:
     ) -> tuple[np.ndarray, np.ndarray]:
         """Orbits since the epoch at t = base + offset, as (whole n, fraction in [−½, ½]).
 
-        The linear term uses fmod(base, P_b), which is exact; the small offset and the
-        Ṗ_b term are added to the fraction, which is then re-centred.
+        The linear term: n = rint(base/P_hi) and the remainder base − n·P_hi − n·P_lo,
+        with n·P_hi an exact product and base − (its high part) an exact sum; the small
+        offset and the Ṗ_b term are added to the fraction, which is then re-centred.
         """
         period = self.period_s
         with np.errstate(invalid="ignore"):  # non-finite times give NaN, flagged later
-            remainder = np.fmod(base, period)
-        whole = base - remainder
-        whole /= period
-        np.rint(whole, out=whole)
+            whole = np.rint(base / self.period_hi)
+            product_hi, product_lo = two_prod(whole, self.period_hi)
+            remainder, rounding = two_sum(base, -product_hi)
+            remainder += rounding - product_lo - whole * self.period_lo
         fraction = remainder
         fraction /= period
         if offset is not None:

@@ -27,6 +27,7 @@ same outputs (the statistics to float rounding).
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -34,17 +35,19 @@ import numpy as np
 from .accounting import Counters, FeedResult, QualityCounts
 from .batch import EventBatch
 from .chain import ChainSettings, add_recipe_moments, tag_targets, time_base
-from .clock.chunks import ChunkOffset, chunk_offsets
-from .clock.diagnose import diagnose
+from .clock.apparent import SiteSpin
+from .clock.check import CheckSettings, check_target
+from .clock.chunks import ChunkOffset
+from .clock.joint import attribute
 from .clock.verdict import ClockVerdict
+from .clock.wording import utc_text
 from .moments import DEFAULT_BINS, MAX_HARMONICS, PhaseMoments
 from .readout import profile_row, significance_row
-from .refold import MIN_EVENTS, Reservoir, refold_scores, refolded_verdict
+from .refold import MIN_EVENTS, Reservoir, refold_scores
 from .stacking import STATE_VERSION, resume_problem
 from .tagger import TargetTagger
 from .targets import TargetSetup
 from .template import PulseTemplate
-from .templatefit import fit_offset
 from .timebase import NS_PER_S, ClockCorrection, LeapSecondTable
 from .timebinned import TimeBinnedMoments
 
@@ -187,20 +190,6 @@ class Pipeline:
         latest = self._latest(target) or tagger.table.start_ns
         return float(tagger.calculators[-1].frequency_at(np.array([latest]))[0])
 
-    def apparent_frequency_hz(self, target: str, instants=None) -> np.ndarray:
-        """Spin frequency seen at the site (Hz) at TT instants (default: the latest
-        event): f (1 + dC/dt), C the barycentric correction. A site clock error dt
-        shifts phase by this times dt; the Doppler factor (up to 1e-4) is why a 1 s
-        error shows as frac(f dt) plus a few hundredths of a cycle."""
-        tagger = self.targets[target].tagger
-        if instants is None:
-            instants = [self._latest(target) or tagger.table.start_ns]
-        instants = np.asarray(instants, dtype=np.int64)
-        before, _, inside_before = tagger.table.evaluate(instants - NS_PER_S)
-        after, _, inside_after = tagger.table.evaluate(instants + NS_PER_S)
-        rate = np.where(inside_before & inside_after, (after - before) / 2.0, 0.0)
-        return self.frequency_hz(target) * (1.0 + rate)
-
     def profiles(self) -> list[dict]:
         """One row per target x recipe for the cumulative fold (``files.schemas.PROFILES``)."""
         rows = []
@@ -213,52 +202,47 @@ class Pipeline:
         return rows
 
     def clock_check(self) -> list[tuple[str, str, ClockVerdict, list[ChunkOffset]]]:
-        """The clock-chain verdict per target that has a template."""
+        """The clock-chain verdict per target that has a template (``clock.check``); with
+        several such targets, each verdict also says whether its effect is shared by all
+        (the clock) or its own (its model) (``clock.joint``)."""
         out = []
         s = self.settings
+        settings = CheckSettings(s.clock_chunk_ns, s.tolerance_cycles, s.tolerance_us)
+        text = utc_text(s.leaps)
+        spins: dict[str, SiteSpin] = {}
         for name, target in self.targets.items():
             if target.template is None:
                 continue
-            moments = self.moments[name][target.clock_recipe]
-            chunks = chunk_offsets(moments.intervals(), target.template,
-                                   chunk_ns=s.clock_chunk_ns,
-                                   cache=self._chunk_cache.setdefault(name, {}))
-            night = fit_offset(moments.total(), target.template) \
-                if moments.total().sum_w > 0 else None
-            ends = [chunks[0].mid_ns, chunks[-1].mid_ns] if chunks else None
-            apparent = self.apparent_frequency_hz(name, ends)
-            verdict = diagnose(chunks, night, float(apparent.mean()),
-                               tolerance_cycles=s.tolerance_cycles,
-                               tolerance_us=s.tolerance_us,
-                               frequency_spread_hz=float(np.ptp(apparent)) / 2)
-            if verdict.kind in ("no_signal", "smeared", "insufficient_signal"):
-                verdict = self._refold(name, verdict)
+            spins[name] = spin = SiteSpin(target.tagger)
+            verdict, chunks = check_target(
+                self.moments[name][target.clock_recipe], target.template, spin, settings,
+                refold=functools.partial(self._refold, name), time_text=text,
+                cache=self._chunk_cache.setdefault(name, {}))
             excluded = self.quality.excluded(name)
             if excluded:  # said first: "no signal" may only mean no usable events
                 verdict = replace(verdict, lines=[
                     f"{excluded:,} events of {name} fell outside its spin model's validity "
                     "window: not in this check.", *verdict.lines])
             out.append((name, target.recipes[target.clock_recipe].name, verdict, chunks))
-        return out
+        return attribute(out, spins, text)
 
-    def _refold(self, name: str, verdict: ClockVerdict) -> ClockVerdict:
-        """When the pulse is missing or smeared, refold recent events under the
-        hypotheses of ``refold.REFOLDS``; a pulse that appears only under one of them
-        names the fault (status FAIL, kind = the hypothesis)."""
+    def _refold(self, name: str) -> tuple[dict, int] | None:
+        """H-tests of recent events folded as tagged and under each hypothesis of
+        ``refold.REFOLDS`` (None with too few events); refolded again only after a tenth
+        of the reservoir is new."""
         reservoir = self.reservoirs[name]
         tt, correction, weight = reservoir.contents()
         target = self.targets[name]
         if tt.size < MIN_EVENTS:
-            return verdict
+            return None
         last = self._refolds.get(name)
         if last is not None and reservoir.added - last[0] < reservoir.size // 10:
-            scores = last[1]  # refold again only after a tenth of the reservoir is new
-        else:
-            weighted = target.recipes[target.clock_recipe].use_weights
-            scores = refold_scores(target.tagger, tt, correction, weight, weighted,
-                                   self.settings.harmonics, self.settings.bins)
-            self._refolds[name] = (reservoir.added, scores)
-        return refolded_verdict(verdict, scores, tt.size)
+            return last[1], tt.size
+        weighted = target.recipes[target.clock_recipe].use_weights
+        scores = refold_scores(target.tagger, tt, correction, weight, weighted,
+                               self.settings.harmonics, self.settings.bins)
+        self._refolds[name] = (reservoir.added, scores)
+        return scores, tt.size
 
     # -- checkpoints --------------------------------------------------------------
     def to_state(self) -> dict:

@@ -2,10 +2,12 @@
 
 Theory of operation
 -------------------
-When the clock check finds the pulse missing or smeared, the most recent events of
-the target's clock recipe (kept in a :class:`Reservoir`, a ring buffer of TT
-instants, barycentric corrections and weights) are folded again with the
-correction changed as each hypothesis in ``REFOLDS`` says: applied with the
+When the clock check finds the pulse missing or smeared, or the night's fold far
+weaker than its chunks' combined detection (:mod:`turnstamp.core.clock.check`), the
+most recent events of the target's clock recipe (kept in a :class:`Reservoir`, a ring
+buffer of TT instants, barycentric corrections and weights; for an archive, its own
+rows) are folded again with the correction changed as each hypothesis in ``REFOLDS``
+says: applied with the
 opposite sign, or not applied at all. A pulse that appears (H-test ≥ 5σ, and 3σ
 above the fold as tagged) only under one of them names the fault: the verdict
 becomes FAIL with that hypothesis as its kind.

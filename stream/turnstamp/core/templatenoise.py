@@ -33,7 +33,8 @@ from scipy import special
 from .significance import sigma_from_log_p
 from .template import PulseTemplate
 
-__all__ = ["in_phase_covariance", "event_variances", "null_skewness", "detection_sigma"]
+__all__ = ["in_phase_covariance", "moment_covariance", "event_variances", "null_skewness",
+           "detection_sigma"]
 
 
 def _skew_corrected(z: float, skew: float) -> float:
@@ -110,6 +111,49 @@ def in_phase_covariance(template: PulseTemplate, harmonics: int, pulsed_fraction
     second = 0.5 * np.real(np.conj(sj) * np.conj(sk) * F(j + k) + np.conj(sj) * sk * F(j - k))
     mean = p * np.abs(s) ** 2
     return second - np.outer(mean, mean)
+
+
+def moment_covariance(extended: np.ndarray, harmonics: int,
+                      pulsed_fraction: float) -> tuple[np.ndarray, np.ndarray]:
+    """Mean and covariance of (cos 2πkx, sin 2πkx), k = 1..m, for one event.
+
+    The event's phase x (cycles, template coordinates) follows 1 − p + p·s(x). With
+    F(n) = E e^{2πinx} = p·S_n (n > 0), F(0) = 1 and F(−n) = F(n)*:
+    E[cos_j cos_k] = ½ Re[F(j−k) + F(j+k)], E[sin_j sin_k] = ½ Re[F(j−k) − F(j+k)],
+    E[cos_j sin_k] = ½ Im[F(j+k) − F(j−k)], and the means are p·Re S_k, p·Im S_k.
+
+    Parameters
+    ----------
+    extended : numpy.ndarray of complex
+        S_n for n = 1..2m (``PulseTemplate.fourier(2 * m)``).
+    harmonics : int
+        m.
+    pulsed_fraction : float
+        p in [0, 1].
+
+    Returns
+    -------
+    mean : numpy.ndarray, shape (2m,)
+        (Re S_k, Im S_k) per unit pulsed fraction (multiply by p for the mean).
+    covariance : numpy.ndarray, shape (2m, 2m)
+        Per unit Σw²; for p = 0 it is ½·I (Taylor's σ_f² per unit Σw²).
+    """
+    m = int(harmonics)
+    p = min(max(float(pulsed_fraction), 0.0), 1.0)
+    moments = np.concatenate([[1.0 + 0j], p * np.asarray(extended[: 2 * m])])
+
+    def F(n: np.ndarray) -> np.ndarray:
+        return np.where(n >= 0, moments[np.abs(n)], np.conj(moments[np.abs(n)]))
+
+    j = np.arange(1, m + 1)[:, None]
+    k = np.arange(1, m + 1)[None, :]
+    low, high = F(j - k), F(j + k)
+    cc = 0.5 * np.real(low + high)
+    ss = 0.5 * np.real(low - high)
+    cs = 0.5 * np.imag(high - low)
+    unit = np.concatenate([extended[:m].real, extended[:m].imag])
+    covariance = np.block([[cc, cs], [cs.T, ss]]) - p * p * np.outer(unit, unit)
+    return unit, covariance
 
 
 def _trig_coefficients(positive: np.ndarray) -> np.ndarray:

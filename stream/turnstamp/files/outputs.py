@@ -131,5 +131,7 @@ def clock_table(results, computed_at_utc_ns: int) -> pa.Table:
             "chunk_shift_cycles": [c.shift_cycles for c in chunks],
             "chunk_sigma_cycles": [c.sigma_cycles for c in chunks],
             "chunk_detected": [bool(c.detected) for c in chunks],
+            "chunk_arrival_tdb_ns": [c.arrival_tdb_ns for c in chunks],
+            "chunk_arrival_sigma_us": [c.arrival_sigma_us for c in chunks],
         })
     return rows_table(rows, schemas.CLOCK, computed_at_utc_ns=computed_at_utc_ns)

@@ -119,7 +119,7 @@ CLOCK = pa.schema([
     _f("recipe", _STRING, "recipe used for the check"),
     _f("status", _STRING, "OK, WARN or FAIL"),
     _f("kind", _STRING, "diagnosis: none, offset, step, drift, wobble, smeared, "
-       "no_signal, insufficient_signal, barycentre_sign"),
+       "no_signal, insufficient_signal, barycentre_sign, no_barycentre"),
     _f("summary", pa.string(), "the diagnosis with its numbers, one line per finding"),
     _f("tolerance_cycles", pa.float64(), "tolerance used", "cycles"),
     _f("verdict_json", pa.string(), "every number behind the verdict, as JSON"),
@@ -128,6 +128,11 @@ CLOCK = pa.schema([
     _f("chunk_shift_cycles", pa.list_(pa.float64()), "template offset per chunk", "cycles"),
     _f("chunk_sigma_cycles", pa.list_(pa.float64()), "1-sigma per chunk", "cycles"),
     _f("chunk_detected", pa.list_(pa.bool_()), "pulse detected in the chunk"),
+    _f("chunk_arrival_tdb_ns", pa.list_(pa.int64()), "barycentric arrival time of each "
+       "chunk's pulse (the template's phase zero, shifted by the chunk's offset) nearest "
+       "the chunk's midpoint; null without an offset", "ns since 2000-01-01T12:00:00 TDB"),
+    _f("chunk_arrival_sigma_us", pa.list_(pa.float64()), "1-sigma of each arrival time",
+       "us"),
 ])
 
 REJECTS = pa.schema([

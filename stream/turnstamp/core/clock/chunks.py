@@ -50,6 +50,15 @@ class ChunkOffset:
         Σw.
     detected : bool
         Pulse detected in this chunk (``OffsetFit.detected``).
+    ambiguous : bool
+        A second minimum (e.g. the interpulse) is comparably likely (``OffsetFit.ambiguous``).
+    significance_sigma : float
+        One-sided σ of the pulse in this chunk (``OffsetFit.significance_sigma``).
+    arrival_tdb_ns : int or None
+        Barycentric (TDB) arrival instant of the chunk's pulse nearest its midpoint, ns
+        (filled by the pipeline, which knows the spin model; None until then).
+    arrival_sigma_us : float or None
+        Its 1σ, µs.
     """
 
     start_ns: int
@@ -62,6 +71,10 @@ class ChunkOffset:
     count: int
     sum_w: float
     detected: bool
+    ambiguous: bool = False
+    significance_sigma: float = 0.0
+    arrival_tdb_ns: int | None = None
+    arrival_sigma_us: float | None = None
 
 
 def chunk_offsets(
@@ -74,6 +87,7 @@ def chunk_offsets(
     target_sigma_cycles: float | None = None,
     harmonics: int | None = None,
     cache: dict | None = None,
+    latest_ns: int | None = None,
 ) -> list[ChunkOffset]:
     """Group consecutive time intervals into chunks and fit the template to each.
 
@@ -101,6 +115,10 @@ def chunk_offsets(
     cache : dict, optional
         Fits of earlier calls, keyed by the chunk's extent and content; pass the same
         dict each time and a chunk whose data did not change is not refitted.
+    latest_ns : int, optional
+        The latest event time (ns): the interval holding it is still filling, so its
+        events lie between its start and this instant (their mean time is nearer its
+        start than its midpoint).
 
     Returns
     -------
@@ -123,7 +141,8 @@ def chunk_offsets(
         groups = _groups_by_time(items, starts, int(chunk_ns))
     else:
         groups = _groups_by_signal(items, template, min_signal, target_sigma_cycles, harmonics)
-    return [_fit_chunk(group, template, interval_ns, harmonics, cache) for group in groups]
+    return [_fit_chunk(group, template, interval_ns, harmonics, cache, latest_ns)
+            for group in groups]
 
 
 def _interval_from_starts(starts: np.ndarray, chunk_ns: int | None) -> int:
@@ -175,7 +194,8 @@ def _chunk_is_done(total: PhaseMoments, template: PulseTemplate, min_signal: flo
 
 
 def _fit_chunk(group: list[Interval], template: PulseTemplate, interval_ns: int,
-               harmonics: int | None, cache: dict | None) -> ChunkOffset:
+               harmonics: int | None, cache: dict | None,
+               latest_ns: int | None = None) -> ChunkOffset:
     """The template offset of one chunk (from ``cache`` when its data did not change)."""
     total = group[0][1].copy()
     for _, m in group[1:]:
@@ -189,7 +209,7 @@ def _fit_chunk(group: list[Interval], template: PulseTemplate, interval_ns: int,
     chunk = ChunkOffset(
         start_ns=int(first),
         end_ns=int(group[-1][0] + interval_ns),
-        mid_ns=int(_weighted_middle(group, interval_ns)),
+        mid_ns=int(_weighted_middle(group, interval_ns, latest_ns)),
         shift_cycles=fit.shift_cycles,
         sigma_cycles=fit.sigma_cycles,
         amplitude=fit.amplitude,
@@ -197,6 +217,8 @@ def _fit_chunk(group: list[Interval], template: PulseTemplate, interval_ns: int,
         count=int(total.count),
         sum_w=float(total.sum_w),
         detected=bool(fit.detected),
+        ambiguous=bool(fit.ambiguous),
+        significance_sigma=float(fit.significance_sigma),
     )
     if cache is not None:
         if len(cache) > _CACHE_LIMIT:
@@ -205,11 +227,19 @@ def _fit_chunk(group: list[Interval], template: PulseTemplate, interval_ns: int,
     return chunk
 
 
-def _weighted_middle(group: list[Interval], interval_ns: int) -> int:
-    """Σw-weighted mean of the interval midpoints (ns); the plain mean when Σw = 0."""
+def _weighted_middle(group: list[Interval], interval_ns: int, latest_ns: int | None) -> int:
+    """Σw-weighted mean of the interval midpoints (ns); the plain mean when Σw = 0.
+
+    The interval still filling (it holds ``latest_ns``, the latest event) is taken to
+    end there: its events lie between its start and that instant.
+    """
     first = group[0][0]
     weights = np.array([m.sum_w for _, m in group], dtype=float)
-    offsets = np.array([s - first for s, _ in group], dtype=float) + 0.5 * interval_ns
+    starts = np.array([s for s, _ in group], dtype=np.int64)
+    ends = starts + interval_ns
+    if latest_ns is not None:
+        ends = np.where((starts <= latest_ns) & (latest_ns < ends), latest_ns + 1, ends)
+    offsets = (starts - first).astype(float) + 0.5 * (ends - starts)
     if weights.sum() > 0:
         return first + int(round(float(weights @ offsets / weights.sum())))
     return first + int(round(float(offsets.mean())))

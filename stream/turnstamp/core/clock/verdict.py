@@ -3,8 +3,11 @@
 Statuses are OK, WARN and FAIL; the kinds name the effect reported (see
 :mod:`turnstamp.core.clock.diagnose` for how they are chosen). An effect is real
 from ``SIGNIFICANT_SIGMA`` and marginal from ``MARGINAL_SIGMA`` (one-sided Gaussian
-σ after trials); its size against the tolerance sets the status. ``Tolerance``,
-``Fits`` and ``Offset`` carry the diagnosis's intermediate results between its rooms.
+σ after trials); its size against the tolerance and its σ set the status
+(:mod:`turnstamp.core.clock.rating`). Each kind is tested at those levels after its
+own trials, so its false-alarm probability on a clean night is ``FALSE_ALARM``
+(``turnstamp bench --clock`` measures them). ``Tolerance``, ``Fits`` and ``Offset``
+carry the diagnosis's intermediate results between its rooms.
 """
 
 from __future__ import annotations
@@ -14,6 +17,7 @@ from dataclasses import asdict, dataclass, field, is_dataclass
 from typing import Any
 
 import numpy as np
+from scipy import special
 
 from .mistakes import Explanation
 from .series import ConstantFit, DriftFit, JitterFit, StepFit
@@ -28,6 +32,8 @@ __all__ = [
     "MIN_CHUNKS",
     "MIN_WOBBLE_CHUNKS",
     "STRUCTURES",
+    "DECIDED_FRACTION",
+    "FALSE_ALARM",
     "Tolerance",
     "Fits",
     "Offset",
@@ -48,6 +54,15 @@ MIN_WOBBLE_CHUNKS = 8
 """Fewest usable chunks for the wobble scan."""
 STRUCTURES = ("step", "drift", "wobble")
 """The structured models of the offset series (as against offset and smear)."""
+DECIDED_FRACTION = 1.0 / 3.0
+"""The night is decided once the offset error is at most this fraction of the tolerance
+(an offset of the tolerance would then stand out at 3σ)."""
+FALSE_ALARM = {
+    "marginal": float(special.ndtr(-MARGINAL_SIGMA)),
+    "significant": float(special.ndtr(-SIGNIFICANT_SIGMA)),
+}
+"""Nominal chance, per kind and per clean night, that noise alone reaches each level (each
+kind's significance is corrected for its own trials: splits, periods)."""
 
 
 @dataclass(frozen=True)
@@ -66,11 +81,17 @@ class Tolerance:
 
 @dataclass
 class Fits:
-    """The unwrapped chunk series (t in s, y and sig in cycles) and the models fitted."""
+    """The unwrapped chunk series (t in s, y and sig in cycles) and the models fitted.
+
+    The arrays hold the chunks kept after outliers were set aside (``n_rejected``);
+    ``mids_ns`` are their midpoints (ns, the chunks' time scale).
+    """
 
     t: np.ndarray
     y: np.ndarray
     sig: np.ndarray
+    mids_ns: np.ndarray | None = None
+    n_rejected: int = 0
     constant: ConstantFit | None = None
     drift: DriftFit | None = None
     step: StepFit | None = None
@@ -140,7 +161,23 @@ class ClockVerdict:
     chi2 : dict
         Per model: {"chi2", "dof"} (and "delta_chi2", "significance_sigma").
     explanations : list of Explanation
-        Time-keeping mistakes consistent with the offset or the step (within 2σ).
+        Time-keeping mistakes whose predicted chunk series fits the data, best first.
+    mistake_s : float or None
+        The time-keeping mistake named (s; positive: event times late), when one is.
+    size, size_sigma : float or None
+        Size of the effect reported and its 1σ, in ``size_unit``.
+    size_unit : str
+        µs for offset, step, smear and jitter; µs/h for a drift; µs amplitude for a
+        wobble; s for a named mistake.
+    false_alarm_probability : float or None
+        Nominal chance that noise alone gives this kind at this level on a clean night.
+    minutes_needed : float or None
+        While undecided: more minutes at tonight's rate until the offset error reaches
+        ``DECIDED_FRACTION`` of the tolerance.
+    n_rejected : int
+        Chunks set aside as outliers (:mod:`turnstamp.core.clock.robust`).
+    attribution : str or None
+        With several pulsars: ``clock`` (shared by all) or ``model`` (this target alone).
     lines : list of str
         Human-readable explanation.
     constant, drift, step, wobble, smear, jitter
@@ -177,6 +214,14 @@ class ClockVerdict:
     smear_width_sigma_cycles: float | None = None
     smear_width_us: float | None = None
     jitter_cycles: float | None = None
+    mistake_s: float | None = None
+    size: float | None = None
+    size_sigma: float | None = None
+    size_unit: str = "µs"
+    false_alarm_probability: float | None = None
+    minutes_needed: float | None = None
+    n_rejected: int = 0
+    attribution: str | None = None
     chi2: dict[str, dict[str, float]] = field(default_factory=dict)
     explanations: list[Explanation] = field(default_factory=list)
     lines: list[str] = field(default_factory=list)

@@ -1,23 +1,39 @@
 """The clock verdict in words: the lines a person reads in the live view and the report.
 
 Every number in the lines is also a field of the verdict; the lines only say them,
-with units, in the order status, data, offset, the model that explains the night,
-and what limits the check.
+with units, in the order status, data, offset, the mistake that explains it, the
+model that explains the night, what it would take by chance, and what limits the
+check. Instants are given by a ``time_text`` function: UTC calendar times in the
+service and the commands (:func:`utc_text`).
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
+import numpy as np
+
 from ..cycles import cycles_to_us
-from .verdict import MARGINAL_SIGMA, MAX_CHUNK_SIGMA, STRUCTURES, Fits, Offset, Tolerance
+from ..timebase import LeapSecondTable, Scale, format_instant, from_tt
+from .verdict import (
+    DECIDED_FRACTION,
+    MARGINAL_SIGMA,
+    MAX_CHUNK_SIGMA,
+    STRUCTURES,
+    Fits,
+    Offset,
+    Tolerance,
+)
 
 if TYPE_CHECKING:
     from ..templatefit import OffsetFit
     from .chunks import ChunkOffset
     from .mistakes import Explanation
 
-__all__ = ["no_signal_lines", "verdict_lines"]
+__all__ = ["no_signal_lines", "verdict_lines", "utc_text", "label_text"]
+
+TimeText = Callable[[int], str]
 
 _HEADS = {
     "none": "no significant effect",
@@ -28,6 +44,20 @@ _HEADS = {
     "smeared": "smeared profile",
     "insufficient_signal": "too little signal to judge",
 }
+
+
+def utc_text(leaps: LeapSecondTable) -> TimeText:
+    """TT instant (ns) -> UTC calendar time, e.g. ``2026-12-01T21:04:05Z``."""
+    def text(tt_ns: int) -> str:
+        utc, _ = from_tt(np.array([int(tt_ns)], dtype=np.int64), Scale.UTC, leaps)
+        return format_instant(int(utc[0]), 0) + "Z"
+
+    return text
+
+
+def label_text(ns: int) -> str:
+    """An instant as the calendar label of its own time scale (no UTC table at hand)."""
+    return format_instant(int(ns), 0) + " (chunk time scale)"
 
 
 def _fmt_us(cycles: float, nu: float) -> str:
@@ -61,35 +91,50 @@ def no_signal_lines(chunks: list[ChunkOffset], used: list[ChunkOffset],
 
 def verdict_lines(status: str, kind: str, scale: Tolerance, n_chunks: int,
                   used: list[ChunkOffset], result: dict[str, Any], offset: Offset, fits: Fits,
-                  matched: tuple[str, float, float, list[Explanation]] | None,
-                  blind: list[str]) -> list[str]:
+                  explanations: list[Explanation], limits: list[str],
+                  time_text: TimeText) -> list[str]:
     """The verdict's lines, status first."""
     nu = scale.nu
+    head = _HEADS[kind]
+    if explanations:
+        best = explanations[0]
+        head += f", named: event times {best.delta_t_s:+g} s off ({best.label})"
+    rejected = result.get("n_rejected", 0)
     lines = [
-        f"{status}: {_HEADS[kind]} ({scale.text}).",
-        f"{n_chunks} chunks, {len(used)} used (detected, σ ≤ {MAX_CHUNK_SIGMA} cycles), "
-        f"span {result['span_s'] / 3600:.2f} h; {scale.text}.",
+        f"{status}: {head} ({scale.text}).",
+        f"{n_chunks} chunks, {len(used)} used (pulse detected unambiguously, σ ≤ "
+        f"{MAX_CHUNK_SIGMA} cycles)" + (f", {rejected} set aside as outliers" if rejected
+                                        else "")
+        + f", span {result['span_s'] / 3600:.2f} h"
+        + (f" from {time_text(used[0].mid_ns)}" if used else "") + ".",
         f"Offset ({offset.source}): {offset.value:+.5f} ± {offset.sigma:.5f} cycles = "
         f"{_fmt_us(offset.value, nu)} ± {cycles_to_us(offset.sigma, nu):.1f} µs, "
         f"{offset.significance:.1f}σ.",
     ]
-    if matched is not None:
-        lines += _mistake_lines(matched, nu)
+    if explanations or kind in ("offset", "step") or offset.significance >= MARGINAL_SIGMA:
+        lines += _mistake_lines(explanations, offset.value, nu)
     if used:
-        lines += _structure_lines(kind, fits, result, used[0].mid_ns, nu)
+        lines += _structure_lines(kind, fits, result, used[0].mid_ns, nu, time_text)
     lines += _scatter_lines(kind, fits, nu)
     fitted = [f"{name} {v['chi2']:.1f} ({v['dof']:.0f})" for name, v in fits.chi2.items()
               if "chi2" in v]
     if fitted:
         lines.append("χ² (dof): " + ", ".join(fitted) + ".")
-    if blind:
-        lines.append("Limited sensitivity: " + "; ".join(blind) + ".")
+    if result.get("false_alarm_probability") is not None:
+        lines.append(f"Chance that noise alone gives this on a clean night: "
+                     f"{result['false_alarm_probability']:.1e}.")
+    if result.get("minutes_needed") is not None:
+        lines.append(
+            f"Undecided: about {result['minutes_needed']:.0f} more minutes at tonight's rate "
+            f"would bring the offset error from {cycles_to_us(offset.sigma, nu):.1f} µs to "
+            f"{DECIDED_FRACTION * scale.us:.1f} µs (a third of the tolerance).")
+    if limits:
+        lines.append("Limited sensitivity: " + "; ".join(limits) + ".")
     return lines
 
 
-def _mistake_lines(matched: tuple[str, float, float, list[Explanation]], nu: float) -> list[str]:
-    """The one-period ambiguity, and the time-keeping mistakes the value matches."""
-    what, value, _, explanations = matched
+def _mistake_lines(explanations: list[Explanation], value: float, nu: float) -> list[str]:
+    """The one-period ambiguity, and the time-keeping mistakes the series matches."""
     period_us = 1e6 / nu
     lines = [
         f"Offsets are known only modulo one period ({period_us:.1f} µs): "
@@ -99,22 +144,21 @@ def _mistake_lines(matched: tuple[str, float, float, list[Explanation]], nu: flo
     ]
     if explanations:
         lines.append(
-            f"The {what} is consistent (within 2σ) with: " + "; ".join(
-                f"Δt = {e.delta_t_s:+g} s, {e.label} → frac(ν·Δt) = "
-                f"{e.predicted_cycles:+.4f} cycles ({e.deviation_sigma:.1f}σ)"
-                for e in explanations
-            ) + "."
-        )
+            "Predicted chunk by chunk through the apparent (Doppler-shifted) frequency, the "
+            "series fits: " + "; ".join(
+                f"Δt = {e.delta_t_s:+g} s as {'a step' if e.pattern == 'step' else 'an offset'}"
+                f", {e.label} (χ² {e.chi2:.1f} for {e.dof} chunks, Δχ² {e.evidence:.0f} "
+                f"against no error)" for e in explanations[:3]) + ".")
     else:
         lines.append(
-            f"The {what} matches none of the usual whole-second time-scale mistakes "
-            "(±1, 18, 19, 32.184, 37, 69.184 s) within 2σ."
+            "No usual whole-second time-scale mistake (±1, 18, 19, 32.184, 37, 69.184 s) "
+            "predicts this series."
         )
     return lines
 
 
 def _structure_lines(kind: str, fits: Fits, result: dict[str, Any], first_mid_ns: int,
-                     nu: float) -> list[str]:
+                     nu: float, time_text: TimeText) -> list[str]:
     """One structured model described: the chosen kind, or else the best if marginal."""
     shown = kind if kind in STRUCTURES else None
     best = fits.best_structure
@@ -126,10 +170,11 @@ def _structure_lines(kind: str, fits: Fits, result: dict[str, Any], first_mid_ns
         return [
             f"Step: {step.size_cycles:+.5f} ± {step.size_sigma_cycles:.5f} cycles = "
             f"{_fmt_us(step.size_cycles, nu)} ± {cycles_to_us(step.size_sigma_cycles, nu):.1f} µs "
-            f"at {result['step_time_ns']} ns "
+            f"at {time_text(result['step_time_ns'])} "
             f"({(result['step_time_ns'] - first_mid_ns) * 1e-9 / 3600:.2f} h after the first "
-            f"chunk; between chunk midpoints {window[0]} and {window[1]} ns), "
-            f"{step.significance_sigma:.1f}σ after {step.trials:.0f} split positions."
+            f"chunk; between chunk midpoints {time_text(window[0])} and "
+            f"{time_text(window[1])}), {step.significance_sigma:.1f}σ after "
+            f"{step.trials:.0f} split positions."
         ]
     if shown == "drift" and drift is not None:
         return [

@@ -1,0 +1,115 @@
+"""The offset estimator against the Cramér–Rao bound, and the coverage of its errors.
+
+For each profile shape × background fraction b × number of events N, seeded trials
+draw N phases from f(φ) = b + (1 − b)·s(φ − δ) (inverse CDF of the template's own
+density on a fine grid, here rather than through the simulator), shifted by a random
+δ, and fit them with the likelihood and the cross-correlation. Over the trials that
+detect the pulse: scatter of the offset over the bound sqrt(1/(N·I)),
+I = ∫ f'²/f dφ (cycles⁻², by numerical integration on 2¹⁶ points), and the fraction
+of true offsets within 1σ and 2σ of the likelihood fit. Just above the detection
+threshold a few fits lock onto noise (errors of a large part of a cycle, which no
+estimator avoids there); they are counted (``wrong_peak``: error > 0.1 cycles) and
+the scatter of the rest is given too (1.4826 × median absolute error).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..core.cycles import wrap_cycles
+from ..core.moments import PhaseMoments
+from ..core.peaks import PeakComponent
+from ..core.template import PulseTemplate
+from ..core.templatefit import fit_offset
+
+__all__ = ["SHAPES", "BACKGROUNDS", "SIZES", "shape", "density", "draw", "fisher_information",
+           "efficiency_cell"]
+
+BACKGROUNDS = (0.0, 0.5, 0.9)
+SIZES = (300, 3_000, 30_000)
+SHAPES = ("two peaks", "sinusoid", "narrow peak")
+_GRID = 1 << 16
+
+
+def shape(name: str) -> PulseTemplate:
+    """The benchmark's profile shapes (invented): the demo's main pulse and interpulse, a
+    sinusoid 1 + cos 2πφ, and a single narrow Gaussian peak (0.01 cycles)."""
+    if name == "two peaks":
+        return PulseTemplate(name=name, unpulsed_fraction=0.0, components=[
+            PeakComponent(shape="von_mises", position_cycles=0.0, width_cycles=0.025),
+            PeakComponent(shape="von_mises", position_cycles=0.47, width_cycles=0.05,
+                          amplitude=0.4)])
+    if name == "sinusoid":
+        centres = (np.arange(256) + 0.5) / 256
+        return PulseTemplate(name=name, unpulsed_fraction=0.0,
+                             binned_profile=list(1.0 + np.cos(2 * np.pi * centres)))
+    return PulseTemplate(name=name, unpulsed_fraction=0.0, components=[
+        PeakComponent(shape="gaussian", position_cycles=0.3, width_cycles=0.01)])
+
+
+def density(name: str, template: PulseTemplate, background: float, x: np.ndarray):
+    """f(φ) and f'(φ) per cycle (the sinusoid exactly, not its binned template)."""
+    if name == "sinusoid":
+        s, ds = 1.0 + np.cos(2 * np.pi * x), -2 * np.pi * np.sin(2 * np.pi * x)
+    else:
+        h = 1e-6
+        s = template.pulsed_density(x)
+        ds = (template.pulsed_density(x + h) - template.pulsed_density(x - h)) / (2 * h)
+    return background + (1 - background) * s, (1 - background) * ds
+
+
+def fisher_information(name: str, template: PulseTemplate, background: float) -> float:
+    """I = ∫ f'²/f dφ over a cycle (cycles⁻²)."""
+    x = (np.arange(_GRID) + 0.5) / _GRID
+    f, df = density(name, template, background, x)
+    inside = f > 1e-300
+    return float(np.sum(df[inside] ** 2 / f[inside]) / _GRID)
+
+
+def draw(cdf: np.ndarray, n: int, rng: np.random.Generator) -> np.ndarray:
+    """n phases by inverse CDF (``cdf`` tabulated on a uniform grid over [0, 1])."""
+    x = np.linspace(0.0, 1.0, cdf.size)
+    return np.interp(rng.random(n), cdf, x)
+
+
+def tabulated_cdf(name: str, template: PulseTemplate, background: float) -> np.ndarray:
+    x = np.linspace(0.0, 1.0, _GRID + 1)
+    f, _ = density(name, template, background, x)
+    cdf = np.concatenate([[0.0], np.cumsum(0.5 * (f[1:] + f[:-1]))])
+    return cdf / cdf[-1]
+
+
+def efficiency_cell(args: tuple[str, float, int, int, int]) -> dict:
+    """One shape × background × N: scatter/CRB of both estimators, coverage, detections."""
+    name, background, n, trials, seed = args
+    template = shape(name)
+    cdf = tabulated_cdf(name, template, background)
+    bound = 1.0 / math.sqrt(n * fisher_information(name, template, background))
+    rng = np.random.default_rng(seed)
+    errors, sigmas, correlation, ambiguous = [], [], [], 0
+    for _ in range(trials):
+        truth = rng.uniform(-0.5, 0.5)
+        moments = PhaseMoments().update(np.remainder(draw(cdf, n, rng) + truth, 1.0))
+        fit = fit_offset(moments, template)
+        if not fit.detected:
+            continue
+        errors.append(wrap_cycles(fit.shift_cycles - truth))
+        sigmas.append(fit.sigma_cycles)
+        ambiguous += bool(fit.ambiguous)
+        cross = fit_offset(moments, template, method="correlation")
+        correlation.append(wrap_cycles(cross.shift_cycles - truth))
+    e, s = np.abs(np.array(errors)), np.array(sigmas)
+    detected = len(errors)
+    robust = float(1.4826 * np.median(e) / bound) if detected > 1 else None
+    return {
+        "shape": name, "background": background, "events": n, "trials": trials,
+        "detected": detected, "bound_cycles": bound,
+        "likelihood_over_bound": float(np.std(errors) / bound) if detected > 1 else None,
+        "correlation_over_bound": float(np.std(correlation) / bound) if detected > 1 else None,
+        "coverage_1sigma": float(np.mean(e <= s)) if detected else None,
+        "coverage_2sigma": float(np.mean(e <= 2 * s)) if detected else None,
+        "ambiguous": ambiguous, "wrong_peak": int(np.sum(e > 0.1)),
+        "likelihood_core_over_bound": robust,
+    }
