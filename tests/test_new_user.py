@@ -1,9 +1,10 @@
-"""A new user's ordinary mistakes (issue 10, acceptance): each ends in a non-zero exit or a
+"""A new user's ordinary mistakes: each ends in a non-zero exit or a
 visible warning that names the field, the value or the file, and never in a traceback.
 
 Each case is (name, argv, texts that must appear, expected exit status or None for
 "any non-zero"); ``{tmp}`` in argv stands for a scratch folder prepared by ``scratch``.
-The offline tagging path (``tag``) adds its own cases in the marked section below.
+The offline tagging path (``tag``: times in another convention, NaN columns, an output
+that exists) has its own file of mistakes, tests/test_tag_mistakes.py.
 """
 
 import time
@@ -93,8 +94,6 @@ MISTAKES = [
      ["nothing.toml"], 2),
     ("stack a folder without a checkpoint", ["stack", "{tmp}/not-output"],
      ["not-output", "checkpoint"], 2),
-    # -- the offline tagging path (tag): cases added with that work ------------------------
-    # (times in seconds or Unix-epoch ns, --time-origin/--time-unit, --force, NaN columns)
 ]
 
 WARNINGS = [

@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 from hypothesis import example, given
 from hypothesis import strategies as st
+from model_fixtures import make_model
 
 from turnstamp.core.flags import Quality
 from turnstamp.core.phase import PhaseCalculator
@@ -19,18 +20,6 @@ from turnstamp.core.spin import SpinModel
 from turnstamp.core.timebase import NS_PER_DAY, NS_PER_S, mjd_to_ns
 
 THIRTY_YEARS_NS = int(30 * 365.25 * NS_PER_DAY)
-
-
-def make_model(**fields) -> SpinModel:
-    base = {
-        "model_id": "test-model",
-        "target": {"name": "test pulsar", "right_ascension_deg": 123.4, "declination_deg": 5.6},
-        "reference_epoch_mjd_tdb": "60640.123456789012",
-        "frequency_hz": "311.370158241234567",
-        "validity": {"start_mjd_tdb": "49000", "end_mjd_tdb": "72000"},
-    }
-    base.update(fields)
-    return SpinModel.model_validate(base)
 
 
 def oracle_phase(model: SpinModel, tdb_ns: int, extra_s: float) -> mp.mpf:

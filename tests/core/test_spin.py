@@ -2,22 +2,11 @@
 phase-reference fingerprint, and validation errors that name the field and value."""
 
 import pytest
+from model_fixtures import make_model
 
 from turnstamp.core.spin import SpinModel, spin_down_summary
 from turnstamp.errors import ModelError
 from turnstamp.files.inputs import validate
-
-
-def make_model(**fields) -> SpinModel:
-    base = {
-        "model_id": "test-model",
-        "target": {"name": "test pulsar", "right_ascension_deg": 123.4, "declination_deg": 5.6},
-        "reference_epoch_mjd_tdb": "60640.123456789012",
-        "frequency_hz": "311.370158241234567",
-        "validity": {"start_mjd_tdb": "49000", "end_mjd_tdb": "72000"},
-    }
-    base.update(fields)
-    return SpinModel.model_validate(base)
 
 
 def test_spin_down_summary_of_the_handbook_formulas():
