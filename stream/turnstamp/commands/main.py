@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 import functools
 import logging
+import os
 import sys
 
 from .. import __version__
@@ -68,6 +69,10 @@ def main(argv: list[str] | None = None) -> int:
                         format="%(asctime)s %(levelname)s %(name)s: %(message)s")
     try:
         return args.run(args)
+    except BrokenPipeError:  # a reader such as `head` closed our stdout: stop quietly
+        # (the Python manual's recipe: point stdout at devnull so the exit flush is silent)
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 1
     except (InputError, ArrowFileError, ReportError, OSError) as exc:  # theirs, not ours
         print(f"turnstamp {args.command}: {exc}", file=sys.stderr)
         return 2
