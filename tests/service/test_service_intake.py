@@ -30,7 +30,8 @@ def test_a_gap_is_noted_a_repeat_refused_and_sources_counted():
     assert again.record.outcome == "duplicate_message" and again.record.rejected == 3
     assert again.row.to_pylist()[0]["events"] == 3
     assert admission.source_status() == {"builder-1": {
-        "messages": 3, "events": 9, "last_sequence": 3, "missing": 2, "highest_sequence": 3}}
+        "messages": 3, "events": 9, "last_sequence": 3, "missing": 2, "highest_sequence": 3,
+        "committed_through": 0, "missing_ranges": [[1, 2]], "missing_ranges_complete": True}}
 
 
 def test_an_undecodable_message_is_refused_whole_without_a_source():

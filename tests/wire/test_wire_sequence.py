@@ -164,3 +164,17 @@ def test_tracker_matches_plain_model(window, max_sources, ops, checkpoint_at):
         assert [m for first, last in ranges for m in range(first, last + 1)] == missing
     assert accepted + duplicates == len(ops)
     assert len(tracker) == len(oracle.sources) <= max_sources
+
+
+def test_committed_through_is_below_the_lowest_missing_number():
+    tracker = SequenceTracker(window=64)
+    assert tracker.committed_through("a") is None
+    for number in (0, 1, 2, 6, 7, 9):
+        tracker.observe("a", number)
+    assert tracker.missing_ranges("a") == [(3, 5), (8, 8)]
+    assert tracker.committed_through("a") == 2
+    for number in (3, 4, 5):
+        tracker.observe("a", number)
+    assert tracker.committed_through("a") == 7
+    tracker.observe("a", 8)
+    assert tracker.committed_through("a") == 9

@@ -2,6 +2,7 @@
 
 =============  ==============================================================
 ``status``     the status document (as in ``status.json``)
+``sources``    per source: committed through, missing ranges (all), highest
 ``reload``     reload every model and template now: ``{"changes": [...]}``
 ``checkpoint`` write a checkpoint now: ``{"ok": true}``
 ``stop``       stop as SIGTERM would (drain, flush, close): ``{"ok": true}``
@@ -44,6 +45,8 @@ def commands(service: Service) -> dict[str, Command]:
     return {
         "status": lambda: json_text(service.status("running"), indent=None),
         "reload": lambda: json.dumps({"changes": service.reload(force=True)}),
+        "sources": lambda: json_text({"sources": service.admission.source_status(None)},
+                                     indent=None),
         "checkpoint": checkpoint,
         "stop": stop,
     }

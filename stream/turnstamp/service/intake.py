@@ -39,6 +39,7 @@ ZMQ_SIZE_LIMIT_FACTOR = 4
 """ZeroMQ itself drops messages above this many ``max_message_bytes``; the ones
 between are received and refused with a reason (counted, not silently lost)."""
 MAX_SOURCES = 10_000  # per-source counts kept, like the sequence tracker's limit
+STATUS_RANGES = 100  # missing ranges per source in status.json (all on the control socket)
 PUBLISH_HIGH_WATER_MARK = 100  # viewers get the newest updates, not a backlog
 
 
@@ -201,10 +202,21 @@ class Admission:
                                            "missing": 0}
         return source
 
-    def source_status(self) -> dict[str, dict]:
-        """Per source: messages, events, last and highest sequence, missing."""
-        return {name: {**self.sources.get(name, {}), "highest_sequence": highest}
-                for name, highest in self.tracker.highest().items()}
+    def source_status(self, ranges_shown: int | None = STATUS_RANGES) -> dict[str, dict]:
+        """Per source: messages, events, last and highest sequence, missing; and for
+        resending: ``committed_through`` (nothing missing at or below it) and
+        ``missing_ranges`` (the first ``ranges_shown``; all with None, and
+        ``missing_ranges_complete`` says which)."""
+        tracker = self.tracker
+        out = {}
+        for name, highest in tracker.highest().items():
+            ranges = tracker.missing_ranges(name)
+            shown = ranges if ranges_shown is None else ranges[:ranges_shown]
+            out[name] = {**self.sources.get(name, {}), "highest_sequence": highest,
+                         "committed_through": tracker.committed_through(name),
+                         "missing_ranges": [list(r) for r in shown],
+                         "missing_ranges_complete": len(shown) == len(ranges)}
+        return out
 
 
 def _refused(received_ns: int, source: str | None, sequence: int | None, reason: str,

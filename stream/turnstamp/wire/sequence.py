@@ -203,6 +203,16 @@ class SequenceTracker:
         base = state.highest - self.window  # number of position 0 after reversal
         return [(int(base + a), int(base + b)) for a, b in zip(starts, stops, strict=True)]
 
+    def committed_through(self, source: str) -> int | None:
+        """The last number of ``source`` with nothing missing at or below it (within
+        the window); None for an unknown source."""
+        state = self._sources.get(source)
+        if state is None:
+            return None
+        if not state.missing:
+            return state.highest
+        return state.highest - state.missing.bit_length() - 1
+
     def forget(self, source: str) -> None:
         """Drop a source's state (its next message counts as its first)."""
         self._sources.pop(source, None)
