@@ -43,8 +43,9 @@ from ..files.ledger import Ledger
 from ..files.outputs import archive_tables, clock_table, rejects_table, rows_table
 from . import control
 from .checkpoint import checkpoint_state, write_checkpoint
-from .intake import Admission, Admitted, Refused, Sockets, drain, open_sockets
+from .intake import Admission, Admitted, Refused, drain
 from .recovery import resume
+from .sockets import Sockets, open_sockets
 from .startup import build_pipeline, open_writers, output_metadata
 from .status import STATUS_FILE, Activity, json_text, status_document
 from .upkeep import Upkeep, file_times
