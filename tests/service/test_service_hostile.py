@@ -2,7 +2,6 @@
 oversized messages are counted, a source name is bound to its CurveZMQ key, and the
 control socket answers only key holders when CurveZMQ is on."""
 
-import json
 import shutil
 import threading
 import time
@@ -16,6 +15,7 @@ from turnstamp.config import load_config
 from turnstamp.files.reader import read_stream
 from turnstamp.service.loop import Service
 from turnstamp.wire.encode import encode_message
+from turnstamp.wire.publisher import ask_sources
 
 
 def _wait(predicate, timeout=30.0) -> bool:
@@ -109,11 +109,10 @@ def test_a_source_name_bound_to_a_key_and_a_control_socket_behind_curve(tmp_path
             alpha.connect(intake)
             alpha.send_multipart(_frames("alpha", 1))
         assert _wait(lambda: service.counters.messages_received == 3, 20)
-        with _client(context, zmq.REQ, keys, "alpha") as req:  # a key holder is answered
-            req.connect(control)
-            req.send(b"sources")
-            assert req.poll(5000)
-            assert set(json.loads(req.recv())["sources"]) == {"alpha", "beta"}
+        public, secret = zmq.auth.load_certificate(str(keys / "alpha.key_secret"))
+        server, _ = zmq.auth.load_certificate(str(keys / "server.key"))
+        sources = ask_sources(control, context=context, curve=(server, public, secret))
+        assert set(sources) == {"alpha", "beta"}  # a key holder is answered
         with context.socket(zmq.REQ) as plain, \
                 _client(context, zmq.REQ, keys, "stranger") as stranger:
             for socket in (plain, stranger):  # neither is ever answered

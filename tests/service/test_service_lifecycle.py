@@ -112,3 +112,12 @@ def _catch(function, errors):
         function()
     except Exception as exc:
         errors.append(exc)
+
+
+def test_a_service_that_cannot_start_says_failed(tmp_path, service_config):
+    path = service_config()
+    (tmp_path / "lantern.toml").write_text("not a spin model")
+    result = _run(path)
+    assert result.returncode == 2 and "Traceback" not in result.stderr
+    status = json.loads((tmp_path / "out" / "status.json").read_text())
+    assert status["state"] == "failed" and "lantern.toml" in status["error"]
