@@ -26,6 +26,11 @@ def add_parser(subparsers) -> None:
     p.add_argument("--clock", action="store_true",
                    help="instead: the clock verdict's statistics (offset efficiency and "
                         "coverage, false alarms on clean nights, reach); default off")
+    p.add_argument("--retag", action="store_true",
+                   help="instead: turnstamp retag on a local Dask cluster, 1 and 2 workers "
+                        "(scaling efficiency, cost per fragment); default off")
+    p.add_argument("--retag-events", type=int, metavar="N",
+                   help="events of the --retag dataset (default 1e7, 1e6 with --quick)")
     p.set_defaults(run=run)
 
 
@@ -37,6 +42,12 @@ def run(args) -> int:
 
         results = bench_clock(quick=args.quick)
         print(json.dumps(results, indent=2) if args.json else "\n".join(clock_lines(results)))
+        return 0
+    if args.retag or args.retag_events:
+        from ..bench.retag import bench_retag, retag_lines
+
+        results = bench_retag(args.retag_events or (10**6 if args.quick else 10**7))
+        print(json.dumps(results, indent=2) if args.json else "\n".join(retag_lines(results)))
         return 0
     from ..bench.suite import run_benchmarks, summary_lines
 

@@ -93,11 +93,11 @@ class _Tables:
         self.built = 0
 
     def futures(self, days: list[int]) -> list:
-        for day in days:
-            if day not in self._futures:
-                table = self._days.day_table(day)
-                self._futures[day] = self._client.scatter(table, hash=False)
-                self.built += 1
+        new = [day for day in days if day not in self._futures]
+        if new:  # one round trip to the scheduler for all of them
+            scattered = self._client.scatter([self._days.day_table(d) for d in new], hash=False)
+            self._futures.update(zip(new, scattered, strict=True))
+            self.built += len(new)
         return [self._futures[day] for day in days]
 
 
