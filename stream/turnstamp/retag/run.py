@@ -25,6 +25,7 @@ from __future__ import annotations
 import dataclasses
 import time
 from collections.abc import Callable
+from concurrent.futures import CancelledError
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -83,29 +84,91 @@ class RetagSummary:
                 "workers": self.workers}
 
 
-class _Tables:
-    """Barycentre tables by TT day: built (or read from the cache) once, scattered once."""
+class _Shared:
+    """What the tasks share, on the workers: the job, and each TT day's barycentre
+    table, built (or read from the cache) once on the client and scattered to every
+    worker. Scattered data has no recipe, and Dask may drop spare copies, so a
+    worker's death can lose it: whatever is lost is scattered again from the
+    client's copy (never rebuilt)."""
 
-    def __init__(self, client, day_tables):
+    def __init__(self, client, job: TagJob):
         self._client = client
-        self._days = day_tables
-        self._futures: dict[int, object] = {}
-        self.built = 0
+        self._job = dataclasses.replace(job, tables=None, statistics=NIGHTLY)
+        self._days = job.tables
+        self._tables: dict[int, object] = {}
+        self._futures: dict = {}
 
-    def futures(self, days: list[int]) -> list:
-        new = [day for day in days if day not in self._futures]
-        if new:  # one round trip to the scheduler for all of them
-            scattered = self._client.scatter([self._days.day_table(d) for d in new], hash=False)
-            self._futures.update(zip(new, scattered, strict=True))
-            self.built += len(new)
-        return [self._futures[day] for day in days]
+    def _scattered(self, key, value):
+        future = self._futures.get(key)
+        if future is None or future.status != "finished":
+            future = self._futures[key] = self._client.scatter(value, broadcast=True,
+                                                                hash=False)
+        return future
+
+    def job(self):
+        return self._scattered("job", self._job)
+
+    def tables(self, days: list[int]) -> list:
+        for day in days:
+            if day not in self._tables:
+                self._tables[day] = self._days.day_table(day)
+        return [self._scattered(day, self._tables[day]) for day in days]
 
 
 def _outcome(future) -> object:
     try:
         return future.result()
-    except Exception as exc:  # a lost worker (KilledWorker), a bug: reported, others go on
+    except CancelledError:  # its inputs were lost with a worker: tried again
+        return None
+    except Exception as exc:  # a worker lost too often (KilledWorker), a bug: reported
         return Failure("", f"{type(exc).__name__}: {exc}")
+
+
+class _Tasks:
+    """The fragments' tasks in flight: days first, then the tagging (module docstring)."""
+
+    RETRIES = 3  # fragments whose shared inputs were lost, tried again this often
+
+    def __init__(self, client, prepared: Prepared, work: Callable):
+        from distributed import as_completed
+
+        self.client, self.prepared, self.work = client, prepared, work
+        self.shared = _Shared(client, prepared.job)
+        self.running = as_completed()
+        self.pending: dict = {}
+        self.retries: dict[str, int] = {}
+
+    def days(self, fragment: Fragment) -> None:
+        self._submit(fragment, "days", fragment_days, fragment, self.shared.job())
+
+    def tag(self, fragment: Fragment, days: list[int]) -> None:
+        self._submit(fragment, "work", self.work, fragment, self.shared.job(),
+                     self.prepared.metadata, self.prepared.fingerprint,
+                     *self.shared.tables(days))
+
+    def _submit(self, fragment: Fragment, step: str, function, *args) -> None:
+        future = self.client.submit(function, *args, pure=False)
+        self.pending[future] = (fragment, step)
+        self.running.add(future)
+
+    def outcomes(self):
+        """(fragment, result) of each fragment finished: a ``FragmentResult`` or a
+        ``Failure``."""
+        for future in self.running:
+            fragment, step = self.pending.pop(future)
+            outcome = _outcome(future)
+            if outcome is None:
+                tries = self.retries[fragment.relative] = self.retries.get(
+                    fragment.relative, 0) + 1
+                if tries <= self.RETRIES:
+                    self.days(fragment)
+                    continue
+                outcome = Failure(fragment.relative, "its inputs were lost with workers "
+                                  f"{tries} times")
+            if step == "days" and not isinstance(outcome, Failure):
+                self.tag(fragment, outcome)
+                continue
+            yield fragment, outcome
 
 
 @dataclass
@@ -162,35 +225,21 @@ def execute(prepared: Prepared, client, *, on_fragment: Callable[..., None] | No
     work : callable
         The per-fragment task (``work.retag_fragment``).
     """
-    from distributed import as_completed
-
     started = time.perf_counter()
-    plan, job = prepared.plan, prepared.job
+    plan = prepared.plan
     prepared.out.mkdir(parents=True, exist_ok=True)
     totals = RunTotals(prepared.recipes)
     for mark in plan.done.values():
         totals.add(FragmentResult.from_mark(mark))
-    shared = client.scatter(dataclasses.replace(job, tables=None, statistics=NIGHTLY),
-                            broadcast=True, hash=False)
-    tables = _Tables(client, job.tables)
     failed: list[tuple[str, str]] = []
     if on_fragment is not None:
         on_fragment(0, total=len(plan.todo))
-    pending: dict = {}
-    running = as_completed()
+    tasks = _Tasks(client, prepared, work)
     for fragment in plan.todo:
-        future = client.submit(fragment_days, fragment, shared, pure=False)
-        pending[future] = (fragment, "days")
-        running.add(future)
-    for future in running:
-        fragment, step = pending.pop(future)
-        outcome = _outcome(future)
+        tasks.days(fragment)
+    for fragment, outcome in tasks.outcomes():
         if isinstance(outcome, Failure):
             failed.append((fragment.relative, outcome.reason))
-        elif step == "days":
-            _submit_work(client, running, pending, work, fragment, shared, prepared,
-                         tables.futures(outcome))
-            continue
         else:
             totals.add(outcome)
         if on_fragment is not None:
@@ -210,14 +259,6 @@ def retag(dataset: Path, out: Path, setup: TargetSetup, env: Environment, scale:
     prepared = prepare(dataset, out, setup, env, scale, convention=convention,
                        table_cache=table_cache)
     return execute(prepared, client, on_fragment=on_fragment, work=work)
-
-
-def _submit_work(client, running, pending: dict, work: Callable, fragment: Fragment, shared,
-                 prepared: Prepared, tables: list) -> None:
-    future = client.submit(work, fragment, shared, prepared.metadata, prepared.fingerprint,
-                           *tables, pure=False)
-    pending[future] = (fragment, "work")
-    running.add(future)
 
 
 def _workers(client) -> int:
