@@ -95,8 +95,16 @@ def _in_process(dataset: Path, out: Path, inputs) -> float:
     return time.perf_counter() - started
 
 
-def _on_cluster(dataset: Path, out: Path, inputs, workers: int) -> tuple[float, float, int]:
-    """(start-up s, run s, events tagged) of a run on a local cluster of ``workers``."""
+def _cpu_seconds() -> float:
+    """CPU seconds of this process so far, all its threads."""
+    import resource
+
+    usage = resource.getrusage(resource.RUSAGE_SELF)
+    return usage.ru_utime + usage.ru_stime
+
+
+def _on_cluster(dataset: Path, out: Path, inputs, workers: int) -> dict:
+    """Start-up s, run s, workers' CPU s, events tagged, of a run on a local cluster."""
     from ..retag.cluster import cluster_client
     from ..retag.run import execute
 
@@ -104,11 +112,13 @@ def _on_cluster(dataset: Path, out: Path, inputs, workers: int) -> tuple[float, 
     with cluster_client(workers=workers, dashboard=False) as client:
         up = time.perf_counter() - started
         client.run(importlib.import_module, "turnstamp.retag.work")  # imported before timing
+        before = sum(client.run(_cpu_seconds).values())
         started = time.perf_counter()
         summary = execute(_prepared(dataset, out, inputs), client)
         seconds = time.perf_counter() - started
+        cpu = sum(client.run(_cpu_seconds).values()) - before
     assert not summary.failed, summary.failed
-    return up, seconds, summary.totals.tagged
+    return {"startup_s": up, "seconds": seconds, "cpu_s": cpu, "tagged": summary.totals.tagged}
 
 
 def bench_retag(n: int = 10**7, nights: int = 10, small_fragments: int = 40) -> dict:
@@ -126,21 +136,24 @@ def bench_retag(n: int = 10**7, nights: int = 10, small_fragments: int = 40) -> 
         _write_dataset(dataset, n, nights)
         _write_dataset(small, 1000 * small_fragments, small_fragments // 2)
         _in_process(small, folder / "out", inputs)  # warms the table cache
+        cpu = _cpu_seconds()
         serial = _in_process(dataset, folder / "out", inputs)
         out["retag_in_process_events_per_s"] = n / serial
+        out["retag_in_process_events_per_cpu_s"] = n / (_cpu_seconds() - cpu)
         for workers in (1, 2):
-            up, seconds, tagged = _on_cluster(dataset, folder / "out", inputs, workers)
-            assert tagged == n, tagged
-            out[f"retag_{workers}_workers_events_per_s"] = n / seconds
-            out[f"retag_{workers}_workers_seconds"] = seconds
-            out[f"cluster_{workers}_workers_startup_s"] = up
+            run = _on_cluster(dataset, folder / "out", inputs, workers)
+            assert run["tagged"] == n, run
+            out[f"retag_{workers}_workers_events_per_s"] = n / run["seconds"]
+            out[f"retag_{workers}_workers_seconds"] = run["seconds"]
+            out[f"retag_{workers}_workers_events_per_cpu_s"] = n / run["cpu_s"]
+            out[f"cluster_{workers}_workers_startup_s"] = run["startup_s"]
         out["retag_scaling_efficiency"] = (out["retag_2_workers_events_per_s"]
                                            / (2 * out["retag_1_workers_events_per_s"]))
         out["retag_overhead_per_fragment_s"] = (out["retag_1_workers_seconds"] - serial) \
             / (2 * nights)
         small_serial = _in_process(small, folder / "out", inputs)
-        _, small_seconds, _ = _on_cluster(small, folder / "out", inputs, 1)
-        out["retag_small_fragment_s"] = small_seconds / small_fragments
+        out["retag_small_fragment_s"] = _on_cluster(small, folder / "out", inputs, 1)[
+            "seconds"] / small_fragments
         out["retag_small_fragment_in_process_s"] = small_serial / small_fragments
     out["load_average_at_end"] = os.getloadavg()[0]
     return out
@@ -154,13 +167,12 @@ def retag_lines(results: dict) -> list[str]:
         f"(load average {r['load_average_at_start']:.1f} at the start, "
         f"{r['load_average_at_end']:.1f} at the end)",
         f"  in this process, the workers' tasks one after another: "
-        f"{r['retag_in_process_events_per_s']:,.0f} events/s",
-        f"  1 worker:  {r['retag_1_workers_events_per_s']:,.0f} events/s "
-        f"({r['retag_1_workers_seconds']:.1f} s; cluster start-up "
-        f"{r['cluster_1_workers_startup_s']:.1f} s)",
-        f"  2 workers: {r['retag_2_workers_events_per_s']:,.0f} events/s "
-        f"({r['retag_2_workers_seconds']:.1f} s; cluster start-up "
-        f"{r['cluster_2_workers_startup_s']:.1f} s)",
+        f"{r['retag_in_process_events_per_s']:,.0f} events/s "
+        f"({r['retag_in_process_events_per_cpu_s']:,.0f} per CPU-second)",
+        *(f"  {w} worker{'s' if w > 1 else ''}: {r[f'retag_{w}_workers_events_per_s']:,.0f} "
+          f"events/s ({r[f'retag_{w}_workers_seconds']:.1f} s; "
+          f"{r[f'retag_{w}_workers_events_per_cpu_s']:,.0f} per CPU-second of the workers; "
+          f"cluster start-up {r[f'cluster_{w}_workers_startup_s']:.1f} s)" for w in (1, 2)),
         f"  scaling efficiency 1 -> 2 workers: {r['retag_scaling_efficiency']:.2f}",
         f"  Dask's cost per fragment: {r['retag_overhead_per_fragment_s'] * 1e3:.0f} ms "
         f"(1-worker run minus in-process, per fragment); a 1 000-event fragment takes "
