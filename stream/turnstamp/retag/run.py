@@ -71,6 +71,9 @@ class RetagSummary:
         out += [f"failed: {name}: {reason}" for name, reason in self.failed]
         out += [f"archive: {self.out}", f"statistics: {self.statistics}"]
         stats = {k: v for k, v in t.statistics.items() if v is not None}
+        if t.tagged and t.quality.get("OUTSIDE_MODEL_VALIDITY", 0) == t.tagged:
+            out.append("warning: every event lies outside the spin model's validity window "
+                       "(a model for other dates?)")
         return out + recipe_lines(self.target, stats)
 
     def as_dict(self) -> dict:
