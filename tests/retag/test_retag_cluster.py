@@ -119,6 +119,11 @@ def test_merged_statistics_equal_those_of_the_concatenated_events(tmp_path, clie
     events = write_dataset(dataset)
     run_retag(client, setup_env, dataset, tmp_path / "out")
     saved = json.loads((tmp_path / "out" / "_statistics.json").read_text())
+    from jsonschema import validate
+
+    from turnstamp.retag.merge import STATISTICS_SCHEMA
+
+    validate(saved, STATISTICS_SCHEMA)  # the file is what schemas/ says it is
     make_setup, env = setup_env
     pq.write_table(events, tmp_path / "all.parquet")
     single = tag_file(tmp_path / "all.parquet", tmp_path / "all-tagged.parquet", make_setup(),

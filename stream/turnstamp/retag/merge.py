@@ -22,7 +22,8 @@ from ..files.durable import atomic_write_json
 from ..tagging.summary import moment_values
 from .work import FragmentResult
 
-__all__ = ["RunTotals", "write_statistics", "night_label", "STATISTICS_NAME"]
+__all__ = ["RunTotals", "write_statistics", "night_label", "STATISTICS_NAME",
+           "STATISTICS_SCHEMA"]
 
 STATISTICS_NAME = "_statistics.json"
 _J2000 = datetime(2000, 1, 1, 12)
@@ -74,6 +75,53 @@ class RunTotals:
             out[recipe] = {"total": {**moment_values(total), "moments": total.to_state()},
                            "nights": nights}
         return out
+
+
+_COUNT = {"type": "integer", "minimum": 0}
+_H_TEST = {
+    "events": _COUNT,
+    "h_statistic": {"type": ["number", "null"], "description": "H-test statistic "
+                    "(de Jager & Büsching 2010); null without events"},
+    "h_harmonics": {"type": ["integer", "null"]},
+    "h_sigma": {"type": ["number", "null"], "description": "one-sided significance; "
+                "null when no number"},
+    "moments": {"type": "object", "description": "PhaseMoments.to_state(): sums of "
+                "w cos 2πkφ, w sin 2πkφ, phase histogram (they add)"},
+}
+STATISTICS_SCHEMA = {
+    "$schema": "https://json-schema.org/draft/2020-12/schema",
+    "title": "turnstamp retag statistics (OUT/_statistics.json)",
+    "type": "object",
+    "required": ["format", "provenance", "events", "tagged", "filtered", "rejected",
+                 "fragments", "recipes"],
+    "properties": {
+        "format": {"const": "turnstamp retag statistics 1"},
+        "provenance": {"type": "object", "additionalProperties": {"type": "string"},
+                       "description": "as in every output file's metadata, with the "
+                       "run's fingerprint"},
+        "events": _COUNT, "tagged": _COUNT, "filtered": _COUNT, "rejected": _COUNT,
+        "rejected_by_reason": {"type": "object", "additionalProperties": _COUNT},
+        "tagged_with_quality_flag": {"type": "object", "additionalProperties": _COUNT},
+        "fragments": {"type": "object", "required": ["done", "skipped", "failed"],
+                      "properties": {"done": _COUNT, "skipped": _COUNT, "failed": {
+                          "type": "array", "items": {
+                              "type": "object", "required": ["fragment", "reason"],
+                              "properties": {"fragment": {"type": "string"},
+                                             "reason": {"type": "string"}}}}}},
+        "nights_are": {"type": "string"},
+        "recipes": {"type": "object", "additionalProperties": {
+            "type": "object", "required": ["total", "nights"],
+            "properties": {
+                "total": {"type": "object", "properties": _H_TEST, "required": ["events"]},
+                "nights": {"type": "array", "items": {
+                    "type": "object", "required": ["night", "tt_start_ns", "events",
+                                                   "moments"],
+                    "properties": {"night": {"type": "string", "format": "date"},
+                                   "tt_start_ns": {"type": "integer", "description":
+                                                   "TT ns since 2000-01-01T12:00:00"},
+                                   **_H_TEST}}}}}},
+    },
+}
 
 
 def write_statistics(out: Path, totals: RunTotals, provenance: dict[str, str],
