@@ -57,13 +57,16 @@ class RetagSummary:
     seconds: float = 0.0
     workers: int = 0
     target: str = ""
+    skipped_events: int = 0  # in fragments already done
 
     def lines(self) -> list[str]:
         t = self.totals
-        rate = t.events / self.seconds if self.seconds > 0 and t.done else 0.0
+        new_events = t.events - self.skipped_events
+        rate = f", {new_events / self.seconds:,.0f}/s re-tagged" if self.seconds > 0 and \
+            new_events else ""
         out = [f"{self.fragments} fragments: {t.done} re-tagged, {t.skipped} already done, "
                f"{len(self.failed)} failed ({self.workers} workers, {self.seconds:.1f} s)",
-               f"{t.events:,} events ({rate:,.0f}/s): {t.tagged:,} tagged, "
+               f"{t.events:,} events{rate}: {t.tagged:,} tagged, "
                f"{t.filtered:,} filtered, {t.rejected:,} rejected"]
         out += [f"  rejected ({reason}): {count:,}"
                 for reason, count in sorted(t.rejected_by_reason.items())]
@@ -234,6 +237,7 @@ def execute(prepared: Prepared, client, *, on_fragment: Callable[..., None] | No
     totals = RunTotals(prepared.recipes)
     for mark in plan.done.values():
         totals.add(FragmentResult.from_mark(mark))
+    skipped_events = totals.events
     failed: list[tuple[str, str]] = []
     if on_fragment is not None:
         on_fragment(0, total=len(plan.todo))
@@ -251,7 +255,8 @@ def execute(prepared: Prepared, client, *, on_fragment: Callable[..., None] | No
                                   {**prepared.metadata, "fingerprint": prepared.fingerprint},
                                   failed)
     return RetagSummary(prepared.out, statistics, totals, len(plan.todo) + len(plan.done),
-                        failed, time.perf_counter() - started, _workers(client), prepared.target)
+                        failed, time.perf_counter() - started, _workers(client), prepared.target,
+                        skipped_events)
 
 
 def retag(dataset: Path, out: Path, setup: TargetSetup, env: Environment, scale: Scale,
