@@ -21,17 +21,37 @@ def commands() -> list[list[str]]:
 
 def test_compose_command_lines_parse_with_our_command_line():
     found = commands()
-    assert [c[0] for c in found] == ["run", "simulate"]
+    assert [c[0] for c in found] == ["run", "simulate", "retag"]
     for argv in found:
         build_parser().parse_args(argv)  # SystemExit on an unknown option
     config = load_config(ROOT / "docker" / "service.toml")
     assert config.output.directory == Path("/data/out")
 
 
-def test_one_image_for_both_services():
+def test_one_image_for_every_service():
     assert COMPOSE.count("build:") == 1
     images = re.findall(r"image:\s*(\S+)", COMPOSE)
-    assert len(images) == 2 and len(set(images)) == 1
+    assert len(images) == 5 and len(set(images)) == 1
+
+
+def test_the_dask_scheduler_and_workers_serve_the_retag_job():
+    entrypoints = [json.loads(block) for block in
+                   re.findall(r"entrypoint:\s*(\[.*?\])", COMPOSE, re.S)]
+    scheduler = next(e for e in entrypoints if e[:2] == ["dask", "scheduler"])
+    worker = next(e for e in entrypoints if e[:2] == ["dask", "worker"])
+    port = scheduler[scheduler.index("--port") + 1]
+    address = f"tcp://scheduler:{port}"
+    assert worker[2] == address and worker[worker.index("--nthreads") + 1] == "1"
+    retag = next(c for c in commands() if c[0] == "retag")
+    assert retag[retag.index("--scheduler") + 1] == address
+    # the job and the workers see the same volume: workers write what the job reads
+    out = retag[retag.index("--out-dir") + 1]
+    assert out.startswith("/data/") and COMPOSE.count("turnstamp-data:/data") >= 3
+    # the `dask` command the image runs is installed by the project's own dependencies
+    import tomllib
+
+    project = tomllib.loads((ROOT / "pyproject.toml").read_text())["project"]
+    assert any(d.startswith("distributed") for d in project["dependencies"])
 
 
 def test_the_output_volume_is_writable_by_the_containers_user():

@@ -48,12 +48,13 @@ ALLOWED = {
     "endpoints": set(),
     "assemble": {"config", "core", "errors", "files", "__init__"},
     "tagging": {"assemble", "config", "core", "errors", "files", "wire"},
+    "retag": {"assemble", "config", "core", "errors", "files", "tagging"},
     "archiveclock": {"assemble", "config", "core", "errors", "files"},
     "service": {"assemble", "config", "core", "errors", "files", "wire", "__init__"},
     "views": {"core", "errors", "files", "__init__"},
     "demo": {"assemble", "config", "core", "errors", "files", "views", "wire"},
-    "bench": {"assemble", "config", "core", "demo", "errors", "files", "service", "tagging",
-              "wire"},
+    "bench": {"assemble", "config", "core", "demo", "errors", "files", "retag", "service",
+              "tagging", "wire"},
 }
 
 

@@ -29,27 +29,40 @@ def add_parser(subparsers) -> None:
     p.add_argument("--fuzz", type=int, default=0, metavar="N",
                    help="instead: N hostile messages at the intake and the control socket "
                         "of fresh services, junk first (default 0: none)")
+    p.add_argument("--retag", action="store_true",
+                   help="instead: turnstamp retag on a local Dask cluster, 1 and 2 workers "
+                        "(scaling efficiency, cost per fragment); default off")
+    p.add_argument("--retag-events", type=int, metavar="N",
+                   help="events of the --retag dataset (default 1e7, 1e6 with --quick)")
     p.set_defaults(run=run)
 
 
 def run(args) -> int:
-    import json
-
+    """One section of benchmarks, printed as text or JSON; exit 1 if a pass/fail one failed."""
     if args.clock:
         from ..bench.clock import bench_clock, clock_lines
 
-        results = bench_clock(quick=args.quick)
-        print(json.dumps(results, indent=2) if args.json else "\n".join(clock_lines(results)))
-        return 0
+        return show(args, bench_clock(quick=args.quick), clock_lines)
     if args.fuzz:
         from ..bench.fuzz import bench_fuzz, fuzz_lines
 
         results = bench_fuzz(args.fuzz)
-        print(json.dumps(results, indent=2) if args.json else "\n".join(fuzz_lines(results)))
+        show(args, results, fuzz_lines)
         return 0 if results["fuzz_passed"] else 1
+    if args.retag or args.retag_events:
+        from ..bench.retag import bench_retag, retag_lines
+
+        events = args.retag_events or (10**6 if args.quick else 10**7)
+        return show(args, bench_retag(events), retag_lines)
     from ..bench.suite import run_benchmarks, summary_lines
 
-    results = run_benchmarks(quick=args.quick, service=args.service, soak_s=args.soak,
-                             tag=not args.no_tag, tag_events=args.tag_events)
-    print(json.dumps(results, indent=2) if args.json else "\n".join(summary_lines(results)))
+    return show(args, run_benchmarks(quick=args.quick, service=args.service,
+                                     soak_s=args.soak, tag=not args.no_tag,
+                                     tag_events=args.tag_events), summary_lines)
+
+
+def show(args, results: dict, lines) -> int:
+    import json
+
+    print(json.dumps(results, indent=2) if args.json else "\n".join(lines(results)))
     return 0

