@@ -62,6 +62,10 @@ class Ledger:
         """Write one message's rows in commit order; count it once its ledger row
         is out."""
         rejects = list(rejects)
+        for stream in (self.archive, self.rejects, self.ledger):
+            rotate = getattr(stream, "check_rotation", None)
+            if rotate is not None:  # between messages: one message's rows never straddle
+                rotate()
         for table in archive:
             self.archive.write(table)
         for table in rejects:
