@@ -21,7 +21,8 @@ try:  # POSIX only; without it recovery cannot see live writers (documented cave
 except ImportError:  # pragma: no cover - not on our platforms
     fcntl = None  # type: ignore[assignment]
 
-__all__ = ["atomic_write_bytes", "atomic_write_text", "atomic_write_json", "publish", "try_lock", "fsync_directory"]
+__all__ = ["atomic_write_bytes", "atomic_write_text", "atomic_write_json", "publish",
+           "try_lock", "fsync_directory"]
 
 
 def atomic_write_text(path: str | Path, text: str, *, encoding: str = "utf-8") -> None:

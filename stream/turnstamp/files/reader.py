@@ -57,6 +57,8 @@ END_OF_STREAM = b"\xff\xff\xff\xff\x00\x00\x00\x00"
 """The IPC end-of-stream marker: the last 8 bytes of a closed stream file."""
 MAGIC = b"ARROW1"
 
+# how pyarrow (26) says that a message runs past the end of the data
+_CUT_SHORT = ("Expected to read", "Expected to be able to read", "bytes available")
 # pyarrow raises these for truncated or undecodable IPC data.
 _READ_ERRORS = (pa.ArrowException, OSError, ValueError, EOFError)
 
@@ -83,8 +85,9 @@ class ArrowFileInfo:
         (a cut message, a dictionary without its batch). 0 for a complete file.
     tail : str
         How the data ends: ``end_of_stream`` or ``footer`` (complete),
-        ``message_boundary`` (cut exactly after a message) or ``truncated_message``
-        (a message that cannot be read: cut short, or damaged).
+        ``message_boundary`` (cut exactly after a message), ``truncated_message``
+        (a message running past the end of the data) or ``corrupt`` (a message that
+        is all there but cannot be read; nothing after it is read).
     detail : str
         Human-readable explanation of the tail.
     format : str
@@ -182,6 +185,12 @@ class StreamScan:
     problem: str = ""
     magic: bool = False
 
+    @property
+    def cut_short(self) -> bool:
+        """Reading stopped at a message that runs past the end of the data (pyarrow
+        says it expected more bytes), not at one that is damaged."""
+        return any(words in self.problem for words in _CUT_SHORT)
+
 
 def _offset(buffer: pa.Buffer, path: Path) -> int:
     head = buffer[:8].to_pybytes()
@@ -272,7 +281,7 @@ def read_arrow_batches(path: str | Path
     if scan.closed:
         tail, detail, used = "end_of_stream", "ends with its end-of-stream marker", scan.size
     elif scan.problem:
-        tail, detail = "truncated_message", scan.problem
+        tail, detail = ("truncated_message" if scan.cut_short else "corrupt"), scan.problem
     else:
         tail, detail = "message_boundary", "data ends after a complete message"
     complete = scan.closed and kind == "stream"

@@ -116,6 +116,9 @@ def finish_file(path: Path, keep_batches: int | None = None) -> RecoveryReport |
             return RecoveryReport(path, "left_alone", have, -1, 0,
                                   f"{why}: its last {have - keep} batches hold rows never "
                                   "committed, but such a file is never rewritten")
+        if scan.problem and not scan.cut_short and keep == have:
+            return RecoveryReport(path, "left_alone", have, -1, 0,
+                                  f"damaged, not cut short: needs a human ({scan.problem})")
         cut = scan.ends[keep - 1] if keep else scan.start
         handle.truncate(cut)
         handle.seek(cut)

@@ -45,7 +45,7 @@ import pyarrow as pa
 
 from .conform import checked_metadata, conform_batch, row_count
 from .durable import fsync_directory, publish, try_lock
-from .reader import FILE_NAME, PART_NAME, END_OF_STREAM, count_batches, list_names, stream_files
+from .reader import END_OF_STREAM, FILE_NAME, PART_NAME, count_batches, list_names, stream_files
 
 __all__ = ["RotatingArrowWriter", "SinkPosition"]
 

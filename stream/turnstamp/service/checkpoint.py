@@ -27,9 +27,9 @@ writes it on its own thread, so the loop only pays for the snapshot.
 from __future__ import annotations
 
 import json
-import time
 import logging
 import threading
+import time
 from collections.abc import Mapping
 from pathlib import Path
 
