@@ -26,12 +26,20 @@ def add_parser(subparsers) -> None:
     p.add_argument("--clock", action="store_true",
                    help="instead: the clock verdict's statistics (offset efficiency and "
                         "coverage, false alarms on clean nights, reach); default off")
+    p.add_argument("--crash-cycles", type=int, default=0, metavar="N",
+                   help="instead: N kill -9 and restart cycles of the service under a "
+                        "full-rate sender, then check the folder (default 0: none)")
+    p.add_argument("--night-hours", type=float, default=0.0, metavar="H",
+                   help="instead: service throughput with H hours of retained statistics "
+                        "against an empty night (default 0: none)")
     p.set_defaults(run=run)
 
 
 def run(args) -> int:
     import json
 
+    if args.crash_cycles or args.night_hours:
+        return _service_endurance(args)
     if args.clock:
         from ..bench.clock import bench_clock, clock_lines
 
@@ -43,4 +51,23 @@ def run(args) -> int:
     results = run_benchmarks(quick=args.quick, service=args.service, soak_s=args.soak,
                              tag=not args.no_tag, tag_events=args.tag_events)
     print(json.dumps(results, indent=2) if args.json else "\n".join(summary_lines(results)))
+    return 0
+
+
+def _service_endurance(args) -> int:
+    import json
+
+    results, lines = {}, []
+    if args.crash_cycles:
+        from ..bench.crash import bench_crash, crash_lines
+
+        results.update(bench_crash(args.crash_cycles))
+        lines += crash_lines(results)
+    if args.night_hours:
+        from ..bench.night import bench_night, night_lines
+
+        night = bench_night(args.night_hours, quick=args.quick)
+        results.update(night)
+        lines += night_lines(night)
+    print(json.dumps(results, indent=2) if args.json else "\n".join(lines))
     return 0
