@@ -147,3 +147,22 @@ def test_leftovers_of_an_interrupted_checkpoint_are_removed_at_start(tmp_path, s
         assert not any(path.exists() for path in stale)
     finally:
         _stop(service)
+
+
+def test_the_checkpoint_is_binary_and_restores_the_statistics_exactly(tmp_path, service_config,
+                                                                      demo_env, lantern,
+                                                                      night_start_tt):
+    from turnstamp.service.checkpoint import CHECKPOINT, read_checkpoint
+
+    config = load_config(service_config())
+    out = tmp_path / "out"
+    service = Service(config)
+    for batch in _night(demo_env, lantern, night_start_tt, seconds=10):
+        service.handle(_frames(batch), RECEIVED)
+    service.checkpoint()
+    data = (out / CHECKPOINT).read_bytes()
+    assert data[:6] == b"ARROW1"  # an Arrow file of arrays, not a text document
+    saved = read_checkpoint(out)
+    assert saved["pipeline"] == service.pipeline.to_state()  # the same numbers, exactly
+    assert saved["counters"] == service.counters.to_state()
+    _stop(service)

@@ -2,9 +2,11 @@
 
 A checkpoint (``checkpoint.arrow`` in the output folder, replaced atomically) is an
 Arrow IPC file whose schema metadata ``turnstamp.checkpoint`` holds the document
-below as compact JSON, every long list of floats in it replaced by
-``{"$floats": [offset, length]}``: a slice of the file's one float64 column
-``values``. Unpacked, the document is:
+below as compact JSON, every array in it replaced by ``{"$f" or "$i": [offset,
+shape, dtype]}``: a slice of the file's float64 column ``floats`` or int64 column
+``ints``. Each statistics accumulator is a header and nine arrays
+(``core.binnedarrays``); read back, it is its ``to_state()`` document again.
+Unpacked, the document is:
 
 ``version``
     2.
@@ -37,7 +39,9 @@ import numpy as np
 import pyarrow as pa
 
 from ..core.accounting import Counters
+from ..core.binnedarrays import binned_arrays, state_from_arrays
 from ..core.pipeline import Pipeline
+from ..core.stacking import STATE_VERSION as PIPELINE_STATE_VERSION
 from ..files.durable import atomic_write_bytes
 from ..files.writer import RotatingArrowWriter
 from ..wire.sequence import SequenceTracker
@@ -50,51 +54,71 @@ log = logging.getLogger(__name__)
 CHECKPOINT = "checkpoint.arrow"
 VERSION = 2
 _KEY = b"turnstamp.checkpoint"
-_PACKED = 8  # lists of at least this many floats go to the binary column
 
 
 def checkpoint_state(pipeline: Pipeline, tracker: SequenceTracker, counters: Counters,
                      writers: Mapping[str, RotatingArrowWriter]) -> dict:
-    """The checkpoint document of the state between two messages."""
+    """The checkpoint document of the state between two messages: a snapshot whose
+    accumulators are arrays (``core.binnedarrays``), cheap to take late in a night."""
     return {
         "version": VERSION,
-        "pipeline": pipeline.to_state(),
+        "pipeline": {
+            "version": PIPELINE_STATE_VERSION,
+            "counters": pipeline.counters.to_state(),
+            "quality": pipeline.quality.to_state(),
+            "targets": {
+                name: {"phase_reference": pipeline.phase_reference[name],
+                       "recipes": [r.name for r in target.recipes],
+                       "moments": [dict(zip(("$binned", "arrays"), binned_arrays(m),
+                                            strict=True)) for m in pipeline.moments[name]]}
+                for name, target in pipeline.targets.items()},
+        },
         "tracker": tracker.to_state(),
         "counters": counters.to_state(),
         "positions": {stem: list(writer.position) for stem, writer in writers.items()},
     }
 
 
-def _pack(node, chunks: list, used: list[int]):
+def _pack(node, chunks: dict[str, list], used: dict[str, int]):
     if isinstance(node, dict):
         return {key: _pack(value, chunks, used) for key, value in node.items()}
     if isinstance(node, list):
-        if len(node) >= _PACKED and all(type(x) is float for x in node):
-            chunks.append(np.asarray(node, dtype=np.float64))
-            used[0] += len(node)
-            return {"$floats": [used[0] - len(node), len(node)]}
         return [_pack(value, chunks, used) for value in node]
+    if isinstance(node, np.ndarray):
+        kind = "$f" if node.dtype.kind == "f" else "$i"
+        flat = node.reshape(-1).astype(np.float64 if kind == "$f" else np.int64)
+        chunks[kind].append(flat)
+        used[kind] += flat.size
+        return {kind: [used[kind] - flat.size, list(node.shape), node.dtype.str]}
     return node
 
 
-def _unpack(node, values: np.ndarray):
+def _unpack(node, columns: dict[str, np.ndarray]):
     if isinstance(node, dict):
-        if len(node) == 1 and "$floats" in node:
-            start, length = node["$floats"]
-            return values[start:start + length].tolist()
-        return {key: _unpack(value, values) for key, value in node.items()}
+        for kind in ("$f", "$i"):
+            if len(node) == 1 and kind in node:
+                start, shape, dtype = node[kind]
+                size = int(np.prod(shape))
+                return columns[kind][start:start + size].reshape(shape).astype(dtype)
+        if "$binned" in node:
+            return state_from_arrays(node["$binned"], _unpack(node["arrays"], columns))
+        return {key: _unpack(value, columns) for key, value in node.items()}
     if isinstance(node, list):
-        return [_unpack(value, values) for value in node]
+        return [_unpack(value, columns) for value in node]
     return node
 
 
 def encode_checkpoint(state: dict) -> bytes:
     """The bytes of a checkpoint file holding ``state``."""
-    chunks: list[np.ndarray] = []
-    skeleton = _pack(state, chunks, [0])
-    values = np.concatenate(chunks) if chunks else np.zeros(0)
-    metadata = {_KEY: json.dumps(skeleton, separators=(",", ":")).encode()}
-    table = pa.table({"values": values}).replace_schema_metadata(metadata)
+    chunks: dict[str, list] = {"$f": [], "$i": []}
+    skeleton = _pack(state, chunks, {"$f": 0, "$i": 0})
+    floats = np.concatenate(chunks["$f"]) if chunks["$f"] else np.zeros(0)
+    ints = np.concatenate(chunks["$i"]) if chunks["$i"] else np.zeros(0, np.int64)
+    rows = max(floats.size, ints.size)
+    table = pa.table({"floats": np.pad(floats, (0, rows - floats.size)),
+                      "ints": np.pad(ints, (0, rows - ints.size))})
+    table = table.replace_schema_metadata(
+        {_KEY: json.dumps(skeleton, separators=(",", ":")).encode()})
     sink = pa.BufferOutputStream()
     with pa.ipc.new_file(sink, table.schema) as writer:
         writer.write_table(table)
@@ -102,12 +126,13 @@ def encode_checkpoint(state: dict) -> bytes:
 
 
 def decode_checkpoint(source) -> dict:
-    """The state held by a checkpoint file (a path or a buffer)."""
+    """The state held by a checkpoint file (a path or a buffer), accumulators in the
+    ``to_state()`` form that ``Pipeline.restore`` and ``turnstamp stack`` read."""
     reader = pa.ipc.open_file(source)
     table = reader.read_all()
     skeleton = json.loads(reader.schema.metadata[_KEY])
-    values = table.column("values").to_numpy() if table.num_rows else np.zeros(0)
-    return _unpack(skeleton, values)
+    columns = {"$f": table.column("floats").to_numpy(), "$i": table.column("ints").to_numpy()}
+    return _unpack(skeleton, columns)
 
 
 def write_checkpoint(directory: Path, state: dict) -> None:
