@@ -166,3 +166,29 @@ def test_the_checkpoint_is_binary_and_restores_the_statistics_exactly(tmp_path, 
     assert saved["pipeline"] == service.pipeline.to_state()  # the same numbers, exactly
     assert saved["counters"] == service.counters.to_state()
     _stop(service)
+
+
+def test_closed_files_open_in_pyarrow_pandas_polars_and_duckdb(tmp_path, service_config,
+                                                               demo_env, lantern,
+                                                               night_start_tt):
+    # the calls the README gives for reading the service's files
+    import pytest
+
+    pandas = pytest.importorskip("pandas")
+    polars = pytest.importorskip("polars")
+    duckdb = pytest.importorskip("duckdb")
+    config = load_config(service_config())
+    out = tmp_path / "out"
+    service = Service(config)
+    service.handle([b"junk first"], RECEIVED)  # the rejects file gets two dictionaries
+    for batch in _night(demo_env, lantern, night_start_tt, seconds=6):
+        service.handle(_frames(batch), RECEIVED)
+    service.handle([b"{}", b"junk last"], RECEIVED)
+    _stop(service)
+    for stem in ("archive", "rejects", "ledger", "significance", "profiles", "clock"):
+        for path in stream_files(out, stem):
+            events = pa.ipc.open_stream(str(path)).read_all()
+            assert isinstance(events.to_pandas(), pandas.DataFrame)
+            assert polars.read_ipc_stream(path).shape == (events.num_rows, events.num_columns)
+            ((count,),) = duckdb.sql("SELECT count(*) FROM events").fetchall()
+            assert count == events.num_rows
