@@ -194,7 +194,7 @@ def _summary(out: Path, log_lines: list[str]) -> int:
         files = sorted(out.glob(f"{stem}-*.arrow*"))
         size = sum(f.stat().st_size for f in files)
         print(f"  {stem:13s} {len(files)} file(s), {size / 1e6:6.1f} MB")
-    print("  status.json, checkpoint.json, demo.toml")
+    print("  status.json, checkpoint.arrow, demo.toml")
     print(f"\nnext: turnstamp report {out}    (night report as HTML + PNG)")
     print(f"      turnstamp inspect {out}")
     errors = [line for line in log_lines if "Traceback" in line or "ERROR" in line]

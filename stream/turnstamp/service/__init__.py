@@ -2,8 +2,8 @@
 
 ``loop``        the ``Service`` object and its receive -> decode -> feed -> write loop
 ``intake``      sockets, draining, decoding and sequence checks of each message
-``checkpoint``  the state between two messages, in ``checkpoint.json``
-``recovery``    resuming after a crash: replay after the checkpoint, drop the uncommitted
+``checkpoint``  the state between two messages, in ``checkpoint.arrow`` (its own thread)
+``recovery``    resuming after a crash: replay in lockstep with the ledger, cut the uncommitted
 ``control``     the REQ/REP control commands
 ``status``      the status document: ``status.json`` and the PUB updates
 ``upkeep``      model and template reload, barycentre tables built ahead of need
