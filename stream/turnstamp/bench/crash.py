@@ -319,7 +319,9 @@ def _check(out: Path, folder: _Folder, sent: int) -> dict:
         "messages_received": ledger.num_rows,
     }
     readers = _open_with_readers(out)
+    outcomes = np.array(ledger["outcome"].to_pylist(), dtype=object)
     return {
+        "crash_duplicate_messages_refused": int((outcomes == "duplicate_message").sum()),
         "crash_archive_rows": archive.num_rows,
         "crash_events_archived_twice": int(ids.size - unique.size),
         "crash_events_lost": int(np.setdiff1d(expected, unique).size),
@@ -371,7 +373,8 @@ def crash_lines(result: dict) -> list[str]:
     return [
         f"crash cycles: {result['crash_cycles']} ({', '.join(result['crash_modes'])})",
         f"  messages sent {result['crash_messages_sent']:,} "
-        f"({result['crash_events_sent']:,} events), resent {result['crash_messages_resent']:,}",
+        f"({result['crash_events_sent']:,} events), resent {result['crash_messages_resent']:,}"
+        f" (refused as duplicates: {result['crash_duplicate_messages_refused']:,})",
         f"  archived twice {result['crash_events_archived_twice']}, lost "
         f"{result['crash_events_lost']}, counters equal the files: "
         f"{result['crash_counters_equal_files']}",
