@@ -209,22 +209,30 @@ def _kill_moment(mode: str, out: Path, rng: random.Random) -> None:
 def _cycle(mode: str, config: Path, out: Path, rng: random.Random) -> subprocess.Popen:
     """One kill of the running service and the restart(s); returns the new process."""
     process = _start(config, out)
-    since = time.time()
-    if mode == "startup":
-        time.sleep(rng.uniform(0.3, 1.5))  # set-up, recovery or the first messages
-        _kill(process)
-        process, since = _start(config, out), time.time()
+    try:
+        if mode == "startup":
+            time.sleep(rng.uniform(0.3, 1.5))  # set-up, recovery or the first messages
+            _kill(process)
+            process = _start(config, out)
+        _started(process, out)
+        if mode == "twice":
+            time.sleep(rng.uniform(0.05, 0.5))
+            _kill(process)
+            process = _start(config, out)
+            _started(process, out)
+    except BaseException:
+        if process.poll() is None:
+            _kill(process)
+        raise
+    return process
+
+
+def _started(process: subprocess.Popen, out: Path) -> None:
+    since = time.time() - 0.01
     if not _wait_for(lambda: _running(out, since) or process.poll() is not None, 120) \
             or process.poll() is not None:
         log = (out.parent / "service.log").read_text()[-3000:]
         raise RuntimeError(f"the service did not start after a kill:\n{log}")
-    if mode == "twice":
-        time.sleep(rng.uniform(0.05, 0.5))
-        _kill(process)
-        process, since = _start(config, out), time.time()
-        if not _wait_for(lambda: _running(out, since), 120):
-            raise RuntimeError("the service did not start after two kills")
-    return process
 
 
 def bench_crash(cycles: int = 20, seed: int = 9) -> dict:
