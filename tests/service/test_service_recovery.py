@@ -76,3 +76,33 @@ def test_a_crash_loses_only_the_message_in_flight(tmp_path, service_config, demo
     assert 7 not in set(archive["sequence"].to_pylist())
     rejects = read_stream(out, "rejects")
     assert "bad_value" not in set(rejects["reason"].to_pylist())
+
+
+def test_a_refused_repeat_in_flight_is_not_taken_for_the_message_it_repeats(
+        tmp_path, service_config, demo_env, lantern, night_start_tt):
+    # message 2 had five bad times (its own rejects rows); its repeat, refused as a
+    # duplicate with the same (source, sequence), dies with only its rejects row out
+    config = load_config(service_config())
+    out = tmp_path / "out"
+    batches = _night(demo_env, lantern, night_start_tt)
+    live = Service(config)
+    live.checkpoint()
+    for batch in batches[:3]:
+        live.handle(_frames(batch), RECEIVED)
+    committed = live.counters.to_state()
+    admitted = live.admission.admit(_frames(batches[2]), 0)  # the repeat: refused
+    live.writers["rejects"].write(admitted.row)
+    for writer in live.writers.values():
+        if writer._open is not None:
+            writer._open.handle.close()
+            writer._open = None
+
+    resumed = Service(config)
+    try:
+        assert resumed.counters.to_state() == committed
+        assert resumed.counters.rejected_by_reason == {"bad_time": 5}
+    finally:
+        for writer in resumed.writers.values():
+            writer.close()
+    reasons = read_stream(out, "rejects")["reason"].to_pylist()
+    assert "duplicate_message" not in reasons

@@ -81,17 +81,22 @@ def _key(batch: pa.RecordBatch) -> Key:
     return next(iter(keys)) if len(keys) == 1 else (None, -1)
 
 
-def claimed(records: list[MessageRecord], archive: list[Key], rejects: list[Key]
-            ) -> tuple[int, int]:
+def claimed(records: list[MessageRecord], archive: list[Key], rejects: list[Key],
+            rejects_events: list[int]) -> tuple[int, int]:
     """How many archive and rejects batches (from the start of each tail) the ledger
-    rows ``records`` commit, walked in lockstep."""
+    rows ``records`` commit, walked in lockstep. A refused message has one rejects
+    batch; an accepted one, batches of its key holding at most the events it
+    rejected (gap notes hold none), so a refused repeat of it that follows, in flight,
+    is not taken for its own."""
     a = r = 0
     for record in records:
         key = (record.source, record.sequence)
         if record.outcome == ACCEPTED:
             while a < len(archive) and archive[a] == key:
                 a += 1
-            while r < len(rejects) and rejects[r] == key:
+            budget = record.rejected
+            while r < len(rejects) and rejects[r] == key and rejects_events[r] <= budget:
+                budget -= rejects_events[r]
                 r += 1
         elif r < len(rejects) and rejects[r] == key:
             r += 1
@@ -124,8 +129,9 @@ def resume(directory: Path, pipeline: Pipeline) -> Resumed:
                for row in batch.to_pylist()]
     archive = tail_batches(directory, "archive", positions.get("archive"))
     rejects = tail_batches(directory, "rejects", positions.get("rejects"))
-    kept_archive, kept_rejects = claimed(records, [_key(b) for _, _, b in archive],
-                                         [_key(b) for _, _, b in rejects])
+    kept_archive, kept_rejects = claimed(
+        records, [_key(b) for _, _, b in archive], [_key(b) for _, _, b in rejects],
+        [sum(e or 0 for e in b.column("events").to_pylist()) for _, _, b in rejects])
     for record in records:
         counters.add_message(record)
         if record.outcome == ACCEPTED:
