@@ -161,7 +161,7 @@ def test_kill_minus_nine_then_restart_loses_nothing_with_resend(tmp_path, servic
                                                                 night_start_tt):
     # A kill -9 loses what the service had not committed (at most the message it was
     # processing, plus what ZeroMQ had queued in its memory). The recovery procedure:
-    # restart, read the last committed sequence per source, resend after it.
+    # restart, read what the service lacks per source, resend exactly that.
     from turnstamp.wire.publisher import EventPublisher
 
     out = tmp_path / "out"
@@ -186,12 +186,11 @@ def test_kill_minus_nine_then_restart_loses_nothing_with_resend(tmp_path, servic
     service, started = _start_process(command, out)
     try:
         resumed = _ask(context, started["endpoints"]["control"], b"status")
-        highest = resumed["sources"].get("kestrel-test", {}).get("highest_sequence")
         counters = resumed["counters"]
         assert counters["events_received"] == (counters["events_tagged"]
                                                + counters["events_filtered"]
                                                + counters["events_rejected"])
-        publisher.resend_after(highest)
+        publisher.resend(resumed["sources"].get("kestrel-test", {}))  # the README's recipe
         for batch in second:
             publisher.send(**batch.columns())
         total = sum(len(b) for b in batches)

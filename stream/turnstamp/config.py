@@ -18,14 +18,17 @@ from pydantic import (
     ConfigDict,
     Field,
     WithJsonSchema,
-    field_validator,
     model_validator,
 )
 
+from .endpoints import ControlConfig, CurveConfig, IntakeConfig
 from .errors import ConfigError
 
 __all__ = [
     "ServiceConfig",
+    "IntakeConfig",
+    "CurveConfig",
+    "ControlConfig",
     "SiteConfig",
     "TargetConfig",
     "RecipeConfig",
@@ -179,51 +182,6 @@ class TargetConfig(BaseModel):
         return self
 
 
-class CurveConfig(BaseModel):
-    """CurveZMQ: authenticated, encrypted intake."""
-
-    model_config = _FROZEN
-    server_secret_key_file: Path
-    """Written by ``zmq.auth.create_certificates`` (or ``turnstamp keys``)."""
-    authorized_clients_directory: Path
-    """Public certificates of the event builders allowed to connect."""
-
-
-class IntakeConfig(BaseModel):
-    """Where the event stream comes in."""
-
-    model_config = _FROZEN
-    endpoints: tuple[str, ...] = ("tcp://127.0.0.1:5555",)
-    """ZeroMQ endpoints of the event stream (loopback unless you say otherwise)."""
-    pattern: Literal["pull", "sub"] = "pull"
-    """pull: back-pressure, nothing lost (use for the archive). sub: best effort."""
-    topics: tuple[str, ...] = ("",)
-    """With pattern sub: topic prefixes to subscribe to ("" is every message)."""
-    bind: bool = True
-    """True: turnstamp binds and event builders connect (several may). False: connect."""
-    receive_high_water_mark: int = Field(default=200, ge=1)
-    """Messages queued in ZeroMQ; with max_message_bytes this bounds intake memory.
-    200 batches of 10 000 events is 2 s at 1 M events/s: room for a slow disk flush."""
-    max_message_bytes: int = Field(default=64 * 2**20, ge=1024)
-    """Larger messages are refused by ZeroMQ and counted: 64 MiB is ~1 M events."""
-    max_events_per_message: int = Field(default=1_000_000, ge=1)
-    """Messages with more events are refused whole (and counted)."""
-    plausible_from: str = "1990-01-01"
-    """Event times before this UTC date are rejected as implausible (a wrong epoch)."""
-    plausible_until: str = "2100-01-01"
-    """Event times after this UTC date are rejected as implausible (a wrong unit)."""
-    curve: CurveConfig | None = None
-    """CurveZMQ authentication and encryption of the intake (off when absent)."""
-
-    @field_validator("endpoints")
-    @classmethod
-    def _endpoints(cls, value):
-        for endpoint in value:
-            if not re.match(r"^(tcp|ipc|inproc)://\S+$", endpoint):
-                raise ValueError(f"{endpoint!r} is not a ZeroMQ endpoint like tcp://host:port")
-        return value
-
-
 class StatisticsConfig(BaseModel):
     """The periodicity statistics kept per target, recipe and window."""
 
@@ -301,14 +259,6 @@ class OutputConfig(BaseModel):
     """ZeroMQ PUB endpoint for live viewers (bound, loopback by default)."""
     checkpoint_every_s: float = Field(default=5.0, gt=0)
     """Cadence of the checkpoint a restart resumes from, s."""
-
-
-class ControlConfig(BaseModel):
-    """The control socket."""
-
-    model_config = _FROZEN
-    endpoint: str | None = None
-    """ZeroMQ REP endpoint taking 'status', 'reload', 'stop' (loopback recommended)."""
 
 
 class ServiceConfig(BaseModel):

@@ -67,6 +67,8 @@ class RejectReason(StrEnum):
     BAD_VALUE = "bad_value"
     OUTSIDE_TABLE_COVERAGE = "outside_table_coverage"
     NO_MODEL = "no_model"
+    SOURCE_NOT_AUTHORISED = "source_not_authorised"
+    SEQUENCE_RESTART = "sequence_restart"
 
 
 class WireError(InputError):
@@ -81,16 +83,20 @@ class WireError(InputError):
     source, sequence : str or None, int or None
         From the header, as far as it could be read.
     events : int
-        The header's event count when it could be read, else 0.
+        The header's event count when it could be read, else 0: a claim only.
+    received : int
+        Events actually decoded from the body (0 when it was not read): what
+        accounting counts, never the header's claim.
     """
 
     def __init__(self, reason: RejectReason, detail: str, source: str | None = None,
-                 sequence: int | None = None, events: int = 0):
+                 sequence: int | None = None, events: int = 0, received: int = 0):
         self.reason = RejectReason(reason)
         self.detail = detail
         self.source = source
         self.sequence = sequence
         self.events = events
+        self.received = received
         where = f" (source {source!r}, sequence {sequence})" if source is not None else ""
         super().__init__("message", None if source is None else f"{source}#{sequence}", detail,
                          message=f"{self.reason.value}: {detail}{where}")

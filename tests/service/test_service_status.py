@@ -37,14 +37,16 @@ def test_event_rate_and_update_latency():
 def test_control_answers_known_commands_and_names_them_otherwise():
     context = zmq.Context()
     try:
-        with context.socket(zmq.REP) as server, context.socket(zmq.REQ) as client:
+        with context.socket(zmq.ROUTER) as server, context.socket(zmq.REQ) as client:
             server.bind("inproc://control")
             client.connect("inproc://control")
             known = {"status": lambda: '{"state": "running"}', "stop": lambda: '{"ok": true}'}
             client.send(b"status\n")
+            assert server.poll(5000)
             answer(server, known)
             assert json.loads(client.recv()) == {"state": "running"}
             client.send(b"dance")
+            assert server.poll(5000)
             answer(server, known)
             assert json.loads(client.recv()) == {
                 "error": "unknown command 'dance'; allowed: status, stop"}

@@ -100,3 +100,70 @@ def test_publisher_refuses_bad_settings(context, kwargs, field):
     with pytest.raises(InputError) as info:
         EventPublisher(**arguments)
     assert info.value.field == field
+
+
+def _numbers(pull) -> list[int]:
+    got = []
+    while pull.poll(200, zmq.POLLIN):
+        got.append(decode_message(pull.recv_multipart(copy=False), has_topic=False,
+                                  **LIMITS).header.sequence)
+    return got
+
+
+def test_resend_sends_exactly_the_missing_ranges_and_the_tail(context):
+    pull = context.socket(zmq.PULL)
+    port = pull.bind_to_random_port("tcp://127.0.0.1")
+    with EventPublisher(f"tcp://127.0.0.1:{port}", "b", context=context,
+                        keep_last=50) as publisher:
+        for _ in range(20):
+            publisher.send(event_id=[1], time_ns=[1])
+        assert len(_numbers(pull)) == 20
+        # the service committed 0..4, 9..14 and nothing above 14
+        report = {"committed_through": 4, "missing_ranges": [[5, 8]], "highest_sequence": 14}
+        assert publisher.resend(report) == 4 + 5
+        assert _numbers(pull) == [5, 6, 7, 8, 15, 16, 17, 18, 19]
+        assert publisher.resend_after(17) == 2 and _numbers(pull) == [18, 19]
+        with pytest.raises(InputError) as info:
+            publisher.resend({**report, "missing_ranges_complete": False})
+        assert info.value.field == "missing_ranges_complete"
+    pull.close(linger=0)
+
+
+def test_an_interrupted_resend_resumes_where_it_stopped(context):
+    pull = context.socket(zmq.PULL)
+    pull.setsockopt(zmq.RCVHWM, 1)
+    port = pull.bind_to_random_port("tcp://127.0.0.1")
+    publisher = EventPublisher(f"tcp://127.0.0.1:{port}", "b", context=context, keep_last=400,
+                               send_timeout_ms=50, high_water_mark=1)
+    for _ in range(400):  # the receiver reads nothing yet: sends start timing out
+        try:
+            publisher.send(event_id=np.arange(2000), time_ns=np.arange(2000))
+        except zmq.Again:
+            break
+    sent = publisher.sequence
+    assert 0 < sent < 400
+    # a send times out partway: the place is kept
+    first = publisher.resend({"missing_ranges": [[0, sent - 1]], "highest_sequence": sent - 1})
+    assert first < sent and publisher.resend_pending == sent - first
+    received = []
+    while publisher.resend_pending:  # read a little, resume, until everything went
+        received += _numbers(pull)
+        publisher.resend()
+    received += _numbers(pull)
+    assert sorted(received) == sorted(list(range(sent)) * 2)  # once, and once resent
+    publisher.close(linger_ms=0)
+    pull.close(linger=0)
+
+
+def test_resend_refuses_what_is_no_longer_kept(context):
+    publisher = EventPublisher("tcp://127.0.0.1:*", "b", bind=True, context=context,
+                               keep_last=2, send_timeout_ms=0)
+    pull = context.socket(zmq.PULL)
+    pull.connect(publisher.last_endpoint)
+    for _ in range(5):
+        publisher.send(event_id=[1], time_ns=[1])
+    with pytest.raises(InputError, match="no longer kept"):
+        publisher.resend({"missing_ranges": [[1, 1]], "highest_sequence": 4})
+    assert publisher.resend_pending == 0
+    publisher.close(linger_ms=0)
+    pull.close(linger=0)

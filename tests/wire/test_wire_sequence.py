@@ -44,7 +44,7 @@ def test_first_message_of_a_source_is_next_whatever_its_number():
 
 
 def test_huge_gap_is_bounded():
-    tracker = SequenceTracker()
+    tracker = SequenceTracker(max_jump=2**63)  # every jump a gap: memory still bounded
     tracker.observe("a", 0)
     status = tracker.observe("a", 2**63 - 1)
     assert status.missing == 2**63 - 2
@@ -164,3 +164,34 @@ def test_tracker_matches_plain_model(window, max_sources, ops, checkpoint_at):
         assert [m for first, last in ranges for m in range(first, last + 1)] == missing
     assert accepted + duplicates == len(ops)
     assert len(tracker) == len(oracle.sources) <= max_sources
+
+
+def test_committed_through_is_below_the_lowest_missing_number():
+    tracker = SequenceTracker(window=64)
+    assert tracker.committed_through("a") is None
+    for number in (0, 1, 2, 6, 7, 9):
+        tracker.observe("a", number)
+    assert tracker.missing_ranges("a") == [(3, 5), (8, 8)]
+    assert tracker.committed_through("a") == 2
+    for number in (3, 4, 5):
+        tracker.observe("a", number)
+    assert tracker.committed_through("a") == 7
+    tracker.observe("a", 8)
+    assert tracker.committed_through("a") == 9
+
+
+def test_a_jump_beyond_the_bound_is_a_new_run_not_missing_messages():
+    # a header claiming sequence 2**63 - 1 once: no 9.2e18 missing messages, and the
+    # source's genuine messages are not duplicates from then on
+    tracker = SequenceTracker(max_jump=1000)
+    assert kinds(tracker, "a", [0, 1, 2]) == ["next"] * 3
+    spoof = tracker.observe("a", 2**63 - 1)
+    assert spoof.kind is SequenceKind.RESTART and spoof.missing == 0
+    assert kinds(tracker, "a", [3, 4, 6]) == ["restart", "next", "gap"]
+    assert tracker.observe("a", 6).kind is SequenceKind.DUPLICATE
+    assert tracker.observe("a", 5).kind is SequenceKind.LATE
+    # a producer restarting from 1 (not 0), far below its last number
+    assert kinds(tracker, "a", [5000, 1, 2]) == ["restart", "restart", "next"]
+    assert tracker.missing_ranges("a") == [] and tracker.committed_through("a") == 2
+    with pytest.raises(InputError):
+        SequenceTracker(max_jump=0)

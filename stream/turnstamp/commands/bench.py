@@ -32,6 +32,9 @@ def add_parser(subparsers) -> None:
     p.add_argument("--night-hours", type=float, default=0.0, metavar="H",
                    help="instead: service throughput with H hours of retained statistics "
                         "against an empty night (default 0: none)")
+    p.add_argument("--fuzz", type=int, default=0, metavar="N",
+                   help="instead: N hostile messages at the intake and the control socket "
+                        "of fresh services, junk first (default 0: none)")
     p.set_defaults(run=run)
 
 
@@ -46,6 +49,12 @@ def run(args) -> int:
         results = bench_clock(quick=args.quick)
         print(json.dumps(results, indent=2) if args.json else "\n".join(clock_lines(results)))
         return 0
+    if args.fuzz:
+        from ..bench.fuzz import bench_fuzz, fuzz_lines
+
+        results = bench_fuzz(args.fuzz)
+        print(json.dumps(results, indent=2) if args.json else "\n".join(fuzz_lines(results)))
+        return 0 if results["fuzz_passed"] else 1
     from ..bench.suite import run_benchmarks, summary_lines
 
     results = run_benchmarks(quick=args.quick, service=args.service, soak_s=args.soak,

@@ -157,6 +157,9 @@ def _service(config, found: Findings) -> None:
                        "turnstamp watch --endpoint); turnstamp watch --folder works")
     if config.control.endpoint:
         found.lines.append(f"control: {config.control.endpoint}")
+    from ..service.sockets import beyond_loopback
+
+    found.warnings += beyond_loopback(config)
     _output_folder(Path(config.output.directory), found)
     found.facts["endpoints"] = {"intake": list(intake.endpoints), "publish": publish,
                                 "control": config.control.endpoint}

@@ -16,7 +16,8 @@ three ways again when the files are replayed after a crash:
 * ``add_rejects(reasons, events)``: the rows a message wrote to the rejects
   stream, counted by reason. A row for a whole refused message counts its events
   (at least one: a message whose events are unknown still counts once); a
-  sequence-gap row is a note about *other* messages and counts nothing.
+  sequence-gap row is a note about *other* messages and counts nothing; so is a
+  sequence-restart row (a new run of the source).
 
 Invariant: ``events_received == events_tagged + events_filtered + events_rejected``
 (``reconciles()``). The counters are checkpointed whole (``to_state``), reasons
@@ -43,6 +44,8 @@ __all__ = ["ACCEPTED", "FeedResult", "MessageRecord", "Counters", "QualityCounts
            "QUALITY_WORDS", "EXCLUDED_FROM_STATISTICS"]
 
 ACCEPTED = "accepted"
+_NOTES = (RejectReason.SEQUENCE_GAP.value, RejectReason.SEQUENCE_RESTART.value)
+"""Rejects rows that note something about a source's sequence and count no event."""
 """Outcome of a message whose events were fed (otherwise the outcome is a reason)."""
 
 _EARLIER_NAMES = {"received": "events_received", "tagged": "events_tagged",
@@ -211,10 +214,10 @@ class Counters:
 
     def add_rejects(self, reasons: Iterable[str], events: Iterable[int]) -> None:
         """Count rejects rows by reason: ``events`` of each row (at least 1); rows
-        noting a sequence gap count nothing (see the module docstring)."""
+        noting a sequence gap or a new run count nothing (see the module docstring)."""
         by_reason = self.rejected_by_reason
         for reason, count in zip(reasons, events, strict=True):
-            if reason != RejectReason.SEQUENCE_GAP.value:
+            if reason not in _NOTES:
                 by_reason[reason] = by_reason.get(reason, 0) + max(int(count), 1)
 
     def reconciles(self) -> bool:

@@ -267,6 +267,18 @@ class RotatingArrowWriter:
             finally:
                 self._closed = True
 
+    def release(self) -> None:
+        """Let go of the open file without ending it, as a killed process would; further
+        writes raise. Start-up recovery then cuts what was never committed (a file
+        ended here could no longer be cut: a closed file is never rewritten)."""
+        with self._lock:
+            state, self._open = self._open, None
+            self._closed = True
+            if state is not None:
+                with contextlib.suppress(Exception):
+                    state.handle.flush()
+                state.handle.close()
+
     def files(self) -> list[Path]:
         """This stream's files in the directory, in write order (open file last)."""
         return stream_files(self.directory, self.stem)

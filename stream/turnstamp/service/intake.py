@@ -1,109 +1,36 @@
-"""The intake: the service's sockets, draining them, and admitting each message.
+"""The intake: draining the intake socket and admitting each message.
 
 Theory of operation
 -------------------
-``open_sockets`` makes every socket of the service on one context and hands each
-to an ``ExitStack``, so they close (linger 0) however the loop ends, before the
-context terminates. Endpoints may name port ``*``; the ports ZeroMQ chose are read
-back (``LAST_ENDPOINT``) into ``Sockets.endpoints``.
-
-``drain`` takes what ZeroMQ holds without blocking. ``Admission.admit`` validates
-one message at the edge: decode (``wire.decode.decode_message``), then its sequence
-number against what its source sent before. A message that cannot be decoded, or
-repeats a sequence number, is ``Refused`` whole; otherwise it is ``Admitted`` with
-a rejects row noting any gap in the sequence before it.
+The sockets themselves are set up by ``sockets``. ``drain`` takes what ZeroMQ
+holds without blocking. ``Admission.admit`` validates one message at the edge:
+decode (``wire.decode.decode_message``), then its sequence number against what its
+source sent before. A message that cannot be decoded, or repeats a sequence number,
+is ``Refused`` whole; otherwise it is ``Admitted`` with a rejects row noting any
+gap in the sequence before it.
 """
 
 from __future__ import annotations
 
 from collections import OrderedDict
 from collections.abc import Callable
-from contextlib import ExitStack
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import pyarrow as pa
 import zmq
 
-from ..config import IntakeConfig, ServiceConfig
+from ..config import IntakeConfig
 from ..core.accounting import MessageRecord
 from ..core.batch import EventBatch
 from ..errors import RejectReason, WireError
 from ..files.outputs import message_reject_table
 from ..wire.decode import decode_message
-from ..wire.sequence import SequenceKind, SequenceTracker
+from ..wire.sequence import SequenceKind, SequenceStatus, SequenceTracker
 
-__all__ = ["ZMQ_SIZE_LIMIT_FACTOR", "MAX_SOURCES", "Sockets", "open_sockets", "drain",
-           "Admitted", "Refused", "Admission"]
+__all__ = ["MAX_SOURCES", "drain", "Admitted", "Refused", "Admission"]
 
-ZMQ_SIZE_LIMIT_FACTOR = 4
-"""ZeroMQ itself drops messages above this many ``max_message_bytes``; the ones
-between are received and refused with a reason (counted, not silently lost)."""
 MAX_SOURCES = 10_000  # per-source counts kept, like the sequence tracker's limit
-PUBLISH_HIGH_WATER_MARK = 100  # viewers get the newest updates, not a backlog
-
-
-@dataclass
-class Sockets:
-    """The open sockets of a running service (publisher and control are optional)."""
-
-    intake: zmq.Socket
-    publisher: zmq.Socket | None = None
-    control: zmq.Socket | None = None
-    endpoints: dict = field(default_factory=dict)
-    """Endpoints as bound or connected: ``intake`` (a list), ``publish``, ``control``."""
-
-
-def _last_endpoint(socket: zmq.Socket) -> str:
-    return socket.getsockopt_string(zmq.LAST_ENDPOINT)
-
-
-def open_sockets(context: zmq.Context, config: ServiceConfig, stack: ExitStack) -> Sockets:
-    """Every socket the configuration asks for; ``stack`` closes them."""
-    intake, endpoints = _intake(context, config.intake, stack)
-    sockets = Sockets(intake, endpoints={"intake": endpoints, "publish": None,
-                                         "control": None})
-    if config.output.publish_endpoint:
-        sockets.publisher = stack.enter_context(context.socket(zmq.PUB))
-        sockets.publisher.setsockopt(zmq.SNDHWM, PUBLISH_HIGH_WATER_MARK)
-        sockets.publisher.setsockopt(zmq.LINGER, 0)
-        sockets.publisher.bind(config.output.publish_endpoint)
-        sockets.endpoints["publish"] = _last_endpoint(sockets.publisher)
-    if config.control.endpoint:
-        sockets.control = stack.enter_context(context.socket(zmq.REP))
-        sockets.control.setsockopt(zmq.LINGER, 0)
-        sockets.control.bind(config.control.endpoint)
-        sockets.endpoints["control"] = _last_endpoint(sockets.control)
-    return sockets
-
-
-def _intake(context: zmq.Context, c: IntakeConfig, stack: ExitStack):
-    """The intake socket (PULL or SUB, CurveZMQ when configured) and its endpoints."""
-    if c.curve is not None:  # the authenticator outlives the socket it guards
-        from zmq.auth import load_certificate
-        from zmq.auth.thread import ThreadAuthenticator
-
-        authenticator = ThreadAuthenticator(context)
-        authenticator.start()
-        stack.callback(authenticator.stop)
-        authenticator.configure_curve(domain="*",
-                                      location=str(c.curve.authorized_clients_directory))
-    kind = zmq.PULL if c.pattern == "pull" else zmq.SUB
-    intake = stack.enter_context(context.socket(kind))
-    intake.setsockopt(zmq.RCVHWM, c.receive_high_water_mark)
-    intake.setsockopt(zmq.MAXMSGSIZE, ZMQ_SIZE_LIMIT_FACTOR * c.max_message_bytes)
-    intake.setsockopt(zmq.LINGER, 0)
-    if kind == zmq.SUB:
-        for topic in c.topics:
-            intake.setsockopt(zmq.SUBSCRIBE, topic.encode())
-    if c.curve is not None:
-        public, secret = load_certificate(str(c.curve.server_secret_key_file))
-        intake.curve_publickey, intake.curve_secretkey = public, secret
-        intake.curve_server = True
-    endpoints = []
-    for endpoint in c.endpoints:
-        (intake.bind if c.bind else intake.connect)(endpoint)
-        endpoints.append(_last_endpoint(intake))
-    return intake, endpoints
+STATUS_RANGES = 100  # missing ranges per source in status.json (all on the control socket)
 
 
 def drain(socket: zmq.Socket, handle: Callable[[list, float], None],
@@ -158,6 +85,7 @@ class Admission:
     def __init__(self, config: IntakeConfig, tracker: SequenceTracker):
         self.config = config
         self.tracker = tracker
+        tracker.max_jump = config.max_sequence_jump
         self.sources: OrderedDict[str, dict] = OrderedDict()  # bounded: MAX_SOURCES
 
     def admit(self, frames: list, received_ns: int) -> Admitted | Refused:
@@ -168,10 +96,16 @@ class Admission:
             message = decode_message(frames, has_topic=c.pattern == "sub",
                                      max_message_bytes=c.max_message_bytes,
                                      max_events=c.max_events_per_message)
-        except WireError as exc:
+        except WireError as exc:  # counted from what was decoded, never the header's claim
             return _refused(received_ns, exc.source, exc.sequence, exc.reason.value, exc.detail,
-                            exc.events, sum(len(f) for f in frames))
+                            exc.received, sum(len(f) for f in frames))
         batch = message.batch
+        key = c.source_keys.get(batch.source)
+        if key is not None and _sender_key(frames) != key:
+            return _refused(received_ns, batch.source, batch.sequence,
+                            RejectReason.SOURCE_NOT_AUTHORISED.value,
+                            f"source {batch.source!r} is bound to another CurveZMQ key "
+                            "(intake.source_keys)", len(batch), message.message_bytes)
         status = self.tracker.observe(batch.source, batch.sequence)
         source = self._source(batch.source)
         source["messages"] += 1
@@ -182,15 +116,27 @@ class Admission:
                             f"sequence {batch.sequence} from {batch.source!r} was already "
                             "received", len(batch), message.message_bytes)
         missing = status.missing if status.kind == SequenceKind.GAP else 0
-        notes = []
-        if missing:
-            source["missing"] += missing
-            notes.append(message_reject_table(
-                received_ns, batch.source, batch.sequence, RejectReason.SEQUENCE_GAP.value,
-                f"{missing} message(s) missing before sequence {batch.sequence} "
-                f"(expected {status.expected})", 0, 0))
+        source["missing"] += missing
         source["last_sequence"] = batch.sequence
-        return Admitted(batch, message.message_bytes, missing, notes)
+        return Admitted(batch, message.message_bytes, missing,
+                        self._notes(status, received_ns, source))
+
+    def _notes(self, status: SequenceStatus, received_ns: int, source: dict) -> list[pa.Table]:
+        """A rejects row (no events) noting a gap before the message or a new run."""
+        name, number = status.source, status.sequence
+        if status.kind == SequenceKind.GAP:
+            reason = RejectReason.SEQUENCE_GAP
+            detail = (f"{status.missing} message(s) missing before sequence {number} "
+                      f"(expected {status.expected})")
+        elif status.kind == SequenceKind.RESTART:
+            source["restarts"] = source.get("restarts", 0) + 1
+            reason = RejectReason.SEQUENCE_RESTART
+            detail = (f"sequence {number} after {status.expected - 1}: a new run of the source "
+                      f"(a restart, or a jump beyond max_sequence_jump = "
+                      f"{self.tracker.max_jump}); nothing counted missing")
+        else:
+            return []
+        return [message_reject_table(received_ns, name, number, reason.value, detail, 0, 0)]
 
     def _source(self, name: str) -> dict:
         source = self.sources.get(name)
@@ -201,10 +147,29 @@ class Admission:
                                            "missing": 0}
         return source
 
-    def source_status(self) -> dict[str, dict]:
-        """Per source: messages, events, last and highest sequence, missing."""
-        return {name: {**self.sources.get(name, {}), "highest_sequence": highest}
-                for name, highest in self.tracker.highest().items()}
+    def source_status(self, ranges_shown: int | None = STATUS_RANGES) -> dict[str, dict]:
+        """Per source: messages, events, last and highest sequence, missing; and for
+        resending: ``committed_through`` (nothing missing at or below it) and
+        ``missing_ranges`` (the first ``ranges_shown``; all with None, and
+        ``missing_ranges_complete`` says which)."""
+        tracker = self.tracker
+        out = {}
+        for name, highest in tracker.highest().items():
+            ranges = tracker.missing_ranges(name)
+            shown = ranges if ranges_shown is None else ranges[:ranges_shown]
+            out[name] = {**self.sources.get(name, {}), "highest_sequence": highest,
+                         "committed_through": tracker.committed_through(name),
+                         "missing_ranges": [list(r) for r in shown],
+                         "missing_ranges_complete": len(shown) == len(ranges)}
+        return out
+
+
+def _sender_key(frames: list) -> str | None:
+    """The CurveZMQ public key (Z85) the message came with, None without CurveZMQ."""
+    try:
+        return frames[0].get("User-Id")
+    except (AttributeError, zmq.ZMQError):
+        return None
 
 
 def _refused(received_ns: int, source: str | None, sequence: int | None, reason: str,

@@ -23,6 +23,7 @@ from __future__ import annotations
 import gc
 import logging
 import signal
+import sys
 import threading
 import time
 from collections import deque
@@ -32,7 +33,6 @@ from pathlib import Path
 
 import zmq
 
-from .. import __version__
 from ..assemble import Environment, TableCache
 from ..config import ServiceConfig, load_config
 from ..core.accounting import MessageRecord
@@ -43,8 +43,10 @@ from ..files.ledger import Ledger
 from ..files.outputs import archive_tables, clock_table, rejects_table, rows_table
 from . import control
 from .checkpoint import Checkpointer, checkpoint_state
-from .intake import Admission, Admitted, Refused, Sockets, drain, open_sockets
+from .intake import Admission, Admitted, Refused, drain
+from .lifecycle import banner, failed, failed_at_start, summary
 from .recovery import resume
+from .sockets import Sockets, beyond_loopback, check_endpoints, open_sockets
 from .startup import build_pipeline, open_writers, output_metadata
 from .status import STATUS_FILE, Activity, json_text, status_document
 from .upkeep import Upkeep, file_times
@@ -105,6 +107,7 @@ class Service:
         self.endpoints: dict = {}  # as bound: "intake" (a list), "publish", "control"
         self.commands = control.commands(self)
         self._stop = stop if stop is not None else threading.Event()
+        self.say: Callable[[str], None] = log.info  # the banner and the summary
         self._due: dict[str, float] = {}
         self._schedule = (
             ("update", config.statistics.update_every_s, self._update),
@@ -123,12 +126,20 @@ class Service:
 
     def run(self) -> int:
         """Serve until stopped; then drain, write the last updates and a checkpoint,
-        close every file, then the sockets."""
+        close every file, then the sockets. On any failure ``status.json`` says
+        "failed" and every file is closed before the error propagates."""
+        try:
+            return self._serve()
+        except BaseException as exc:
+            failed(self, exc)
+            raise
+
+    def _serve(self) -> int:
         with zmq.Context() as context, ExitStack() as stack:
             stack.callback(self.upkeep.close)
             self.sockets = sockets = open_sockets(context, self.config, stack)
             self.endpoints = sockets.endpoints
-            log.info("turnstamp %s listening on %s", __version__, self.endpoints["intake"])
+            self.say(banner(self))
             self._write_status("running")
             poller = zmq.Poller()
             for socket in (sockets.intake, sockets.control):
@@ -252,12 +263,23 @@ class Service:
         for writer in self.writers.values():
             writer.close()
         self._write_status("stopped")
-        log.info("stopped: %s", self.counters.totals())
+        self.say(summary(self))
 
 
 def run_service(config_path: Path) -> int:
-    """Load the configuration, install signal handlers, run until stopped."""
+    """Load the configuration, check its addresses (a taken one is an error at once),
+    install signal handlers, run until stopped; banner and summary on stderr."""
+    config = load_config(config_path)
+    check_endpoints(config)
+    for line in beyond_loopback(config):
+        log.warning("%s", line)
     stop = threading.Event()
     for number in (signal.SIGINT, signal.SIGTERM):
         signal.signal(number, lambda *_: stop.set())
-    return Service(load_config(config_path), stop=stop).run()
+    try:
+        service = Service(config, stop=stop)
+    except BaseException as exc:
+        failed_at_start(Path(config.output.directory), exc)
+        raise
+    service.say = lambda text: print(text, file=sys.stderr, flush=True)
+    return service.run()

@@ -7,9 +7,10 @@ the frames (buffers, total size, count), the header (size, UTF-8 JSON without
 duplicate keys or NaN, version, then the strict :class:`MessageHeader` model), the
 body's IPC messages as pyarrow's ``MessageReader`` frames them (how many, their
 types, no compression; :mod:`turnstamp.files.arrow_metadata` reads the one flag
-pyarrow does not expose), the first record batch's row count against the limit and
-the header, the schema against the column rules, a full validation of the batch,
-and last the conversion to the core's dtypes.
+pyarrow does not expose), no bytes after the end-of-stream marker, the first
+record batch's row count against the limit and the header, the schema against
+the column rules, a full validation of the batch, and last the conversion to the
+core's dtypes.
 
 The error boundary: only the decoder's own explicit checks, pyarrow's refusals of
 the body (``pa.ArrowException``, and ``OSError``/``EOFError`` for IPC data cut
@@ -128,6 +129,7 @@ def decode_message(frames: Sequence[bytes | zmq.Frame | memoryview], *, has_topi
     if rows != header.events:
         raise context.refuse(RejectReason.MALFORMED_MESSAGE,
                              f"header events = {header.events} but the body has {rows} rows")
+    context.received = rows  # the rows are in hand: a refusal from here counts them
     positions, notes = check_schema(schema, context)
     if record is not None:
         _validate(record, context)
@@ -267,10 +269,12 @@ def _survey_body(body: pa.Buffer, context: MessageContext) -> int:
 
     Refuses runaway message counts, a body not starting with its one schema,
     message types other than dictionary and record batches, and compressed
-    bodies (whose decompressed size only the sender vouches for).
+    bodies (whose decompressed size only the sender vouches for), and bytes after
+    the end-of-stream marker (which a reader would silently ignore).
     """
     batches = 0
-    for count, message in enumerate(pa.ipc.MessageReader.open_stream(body)):
+    stream = pa.BufferReader(body)
+    for count, message in enumerate(pa.ipc.MessageReader.open_stream(stream)):
         if count >= MAX_IPC_MESSAGES:
             raise context.refuse(RejectReason.MALFORMED_MESSAGE,
                                  f"body has more than {MAX_IPC_MESSAGES} IPC messages")
@@ -289,7 +293,16 @@ def _survey_body(body: pa.Buffer, context: MessageContext) -> int:
                                  "body uses Arrow IPC buffer compression, which this "
                                  "format does not allow; send it uncompressed")
         batches += kind == "record batch"
+    _check_end(stream.tell(), body.size, context)
     return batches
+
+
+def _check_end(end: int, size: int, context: MessageContext) -> None:
+    """Refuse bytes after the body's end-of-stream marker."""
+    if end != size:
+        raise context.refuse(RejectReason.MALFORMED_MESSAGE,
+                             f"body has {size - end} bytes after the Arrow end-of-stream "
+                             "marker")
 
 
 def _read_body(body: pa.Buffer, context: MessageContext

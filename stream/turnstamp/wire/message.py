@@ -160,18 +160,23 @@ class MessageContext:
     sequence : int or None
         The header's sequence number, once read and in range.
     events : int
-        The header's event count, 0 until read.
+        The header's event count, 0 until read (a claim, never counted as such).
+    received : int
+        Events actually in hand: the body's rows once read and equal to the
+        header's count, else 0. What a refusal counts as received.
     """
 
     source: str | None = None
     sequence: int | None = None
     events: int = 0
+    received: int = 0
 
     def refuse(self, reason: RejectReason, detail: str) -> WireError:
         """The refusal of this message (to raise), its detail cut to a readable length."""
         if len(detail) > _MAX_DETAIL:
             detail = detail[: _MAX_DETAIL - 3] + "..."
-        return WireError(reason, detail, self.source, self.sequence, self.events)
+        return WireError(reason, detail, self.source, self.sequence, self.events,
+                         received=self.received)
 
     @classmethod
     def from_raw_header(cls, raw: Any) -> MessageContext:

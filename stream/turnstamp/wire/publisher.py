@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import time
 from collections import deque
+from collections.abc import Mapping
 from typing import Any, Literal
 
 import zmq
@@ -29,7 +30,7 @@ from ..errors import InputError
 from .encode import encode_message, scale_name
 from .message import SEQUENCE_LIMIT, is_integer, is_source_name
 
-__all__ = ["EventPublisher"]
+__all__ = ["EventPublisher", "ask_sources"]
 
 
 class EventPublisher:
@@ -73,10 +74,12 @@ class EventPublisher:
     stamp_wall_clock : bool, default True
         Put the wall clock in each header's ``sent_utc_ns``.
     keep_last : int, default 0
-        Keep this many sent messages for :meth:`resend_after`. A receiver that
-        crashes loses what ZeroMQ had queued for it; after its restart, ask it for
-        the last sequence it committed (``turnstamp`` reports it per source in its
-        status) and resend the rest. The receiver refuses any duplicate.
+        Keep this many sent messages for :meth:`resend`. A receiver that crashes
+        loses what ZeroMQ had queued for it; after its restart, ask it which numbers
+        it lacks (:func:`ask_sources`: per source the missing ranges and the highest
+        number committed) and pass this source's entry to :meth:`resend`. The
+        receiver refuses any duplicate. Keep at least the messages of the longest
+        outage you want to repair.
     """
 
     def __init__(self, endpoint: str, source: str, *, time_scale: Scale | str = "UTC",
@@ -105,6 +108,7 @@ class EventPublisher:
             raise InputError("keep_last", keep_last, "must be an integer >= 0")
         self._kept: deque[tuple[int, list]] = deque(maxlen=keep_last or None)
         self._keep = keep_last > 0
+        self._pending: deque[tuple[int, list]] = deque()
         context = context if context is not None else zmq.Context.instance()
         self._socket = context.socket(zmq.PUSH if pattern == "push" else zmq.PUB)
         try:
@@ -175,21 +179,60 @@ class EventPublisher:
 
     def resend_after(self, sequence: int | None) -> int:
         """Send again the kept messages numbered above ``sequence`` (all kept ones
-        when None); returns how many. Raises ``InputError`` when some of them are no
-        longer kept (``keep_last`` too small for the outage)."""
+        when None); returns how many. Resumable as :meth:`resend`."""
+        return self.resend({"missing_ranges": [], "highest_sequence": sequence})
+
+    def resend(self, report: Mapping[str, Any] | None = None) -> int:
+        """Send again what the receiver lacks, from its report on this source.
+
+        ``report`` is this source's entry of the service's ``sources`` answer (or of
+        ``status.json``'s ``sources``): ``missing_ranges`` (inclusive ``[first,
+        last]`` pairs) and ``highest_sequence``. Every kept message in a missing
+        range or above the highest is sent again, in ascending order; an empty
+        report (``{}``: a source the service never saw) resends every kept message.
+
+        Resumable: when a send times out (``send_timeout_ms``) it stops there and
+        the messages not yet sent stay pending (:attr:`resend_pending`);
+        ``resend()`` without a report continues from there. A new report replaces
+        the pending plan. Returns how many messages this call sent.
+
+        Raises
+        ------
+        InputError
+            Resending was not enabled, or a wanted message is no longer kept
+            (``keep_last`` too small for the outage); nothing is sent then.
+        """
         if not self._keep:
             raise InputError("keep_last", 0, "resending needs EventPublisher(keep_last=N)")
+        if report is not None:
+            self._pending = deque(self._plan(report))
+        sent = 0
+        while self._pending:
+            try:
+                self._socket.send_multipart(self._pending[0][1], copy=False)
+            except zmq.Again:  # the place is kept: resend() continues from here
+                break
+            self._pending.popleft()
+            sent += 1
+        return sent
+
+    @property
+    def resend_pending(self) -> int:
+        """Messages of an interrupted :meth:`resend` still to send."""
+        return len(self._pending)
+
+    def _plan(self, report: Mapping[str, Any]) -> list[tuple[int, list]]:
+        """The kept messages ``report`` lacks, ascending; InputError when some are gone."""
+        ranges, highest = _wanted(report)
+        if highest is None:
+            return list(self._kept)
         first_kept = self._kept[0][0] if self._kept else self._sequence
-        wanted = 0 if sequence is None else sequence + 1
-        if self._kept and wanted < first_kept:
-            raise InputError("sequence", sequence, f"messages {wanted}..{first_kept - 1} are "
+        lowest = min([first for first, _ in ranges] + [highest + 1])
+        if lowest < min(first_kept, self._sequence):
+            raise InputError("sequence", lowest, f"messages {lowest}..{first_kept - 1} are "
                              f"no longer kept (keep_last = {self._kept.maxlen})")
-        resent = 0
-        for number, frames in list(self._kept):
-            if number >= wanted:
-                self._socket.send_multipart(frames, copy=False)
-                resent += 1
-        return resent
+        return [(number, frames) for number, frames in self._kept
+                if number > highest or any(a <= number <= b for a, b in ranges)]
 
     def close(self, linger_ms: int = 1000) -> None:
         """Close the socket, waiting up to ``linger_ms`` to deliver queued messages.
@@ -204,3 +247,49 @@ class EventPublisher:
 
     def __exit__(self, *exc_info: object) -> None:
         self.close()
+
+
+def _wanted(report: Mapping[str, Any]) -> tuple[list[tuple[int, int]], int | None]:
+    """Missing ranges and highest number of a service's report on one source."""
+    if not isinstance(report, Mapping):
+        raise InputError("report", report, "must be the service's entry for this source")
+    if report.get("missing_ranges_complete") is False:
+        raise InputError("missing_ranges_complete", False, "the report lists only some "
+                         "missing ranges; ask the control socket (ask_sources) for all")
+    highest = report.get("highest_sequence")
+    if highest is None:
+        return [], None
+    if not is_integer(highest):
+        raise InputError("highest_sequence", highest, "must be an integer or null")
+    ranges = []
+    for item in report.get("missing_ranges") or []:
+        if (not isinstance(item, list | tuple) or len(item) != 2
+                or not all(map(is_integer, item)) or item[0] > item[1]):
+            raise InputError("missing_ranges", item, "must be [first, last] integers")
+        ranges.append((int(item[0]), int(item[1])))
+    return ranges, int(highest)
+
+
+def ask_sources(control_endpoint: str, *, timeout_ms: int = 5000,
+                context: zmq.Context | None = None,
+                curve: tuple[bytes, bytes, bytes] | None = None) -> dict[str, dict]:
+    """The service's report on every source, from its control socket (``sources``).
+
+    Per source: ``committed_through`` (the last number below which nothing is
+    missing), ``missing_ranges`` and ``highest_sequence``, all committed to its
+    files. ``curve``: (server public key, client public key, client secret key)
+    when the control socket uses CurveZMQ. Raises ``TimeoutError`` when no answer
+    comes within ``timeout_ms``.
+    """
+    import json
+
+    context = context if context is not None else zmq.Context.instance()
+    with context.socket(zmq.REQ) as socket:
+        socket.setsockopt(zmq.LINGER, 0)
+        if curve is not None:
+            socket.curve_serverkey, socket.curve_publickey, socket.curve_secretkey = curve
+        socket.connect(control_endpoint)
+        socket.send(b"sources")
+        if not socket.poll(timeout_ms, zmq.POLLIN):
+            raise TimeoutError(f"no answer from {control_endpoint} in {timeout_ms} ms")
+        return json.loads(socket.recv())["sources"]

@@ -7,7 +7,12 @@ each source :class:`SequenceTracker` keeps the highest number seen and, as one
 integer used as a bit set, which of the ``window`` numbers below it are still
 missing: bit ``i`` stands for number ``highest - 1 - i``. A number above the
 highest shifts the set left by the step and marks the numbers skipped; a missing
-number arriving clears its bit; a 0 after higher numbers is a producer restart.
+number arriving clears its bit; a 0 after higher numbers is a producer restart, and
+so is a number more than ``max_jump`` away from the highest, either way: a producer
+that restarted from another number, or a header not to be trusted. Such a jump
+starts a new run (nothing counted missing); a single bad number therefore cannot
+make the source's genuine messages look like millions of missing ones, nor like
+duplicates forever after.
 Memory per source is bounded by ``window / 8`` bytes, and the number of sources by
 ``max_sources`` (least recently seen dropped first). Pure bookkeeping, no I/O.
 """
@@ -42,7 +47,8 @@ class SequenceKind(StrEnum):
     DUPLICATE = "duplicate"
     """Seen already, or too old to tell: the caller refuses the message."""
     RESTART = "restart"
-    """0 after a higher number: the producer restarted; its state is reset."""
+    """0 after a higher number, or a jump beyond ``max_jump`` either way: a new run
+    of the producer (or a suspicious number); its state is reset, nothing missing."""
 
 
 @dataclass(frozen=True)
@@ -110,15 +116,22 @@ class SequenceTracker:
         How many numbers below the highest one are remembered.
     max_sources : int, default 10_000
         How many sources are tracked at once.
+    max_jump : int, default 1_000_000
+        A number further than this from the highest, above or below, starts a
+        new run (``RESTART``) instead of counting the numbers between as missing.
     """
 
-    def __init__(self, window: int = 100_000, max_sources: int = 10_000):
+    def __init__(self, window: int = 100_000, max_sources: int = 10_000,
+                 max_jump: int = 1_000_000):
         if not is_integer(window) or window < 1:
             raise InputError("window", window, "must be an integer >= 1")
         if not is_integer(max_sources) or max_sources < 1:
             raise InputError("max_sources", max_sources, "must be an integer >= 1")
+        if not is_integer(max_jump) or max_jump < 1:
+            raise InputError("max_jump", max_jump, "must be an integer >= 1")
         self.window = window
         self.max_sources = max_sources
+        self.max_jump = max_jump
         self.evicted = 0
         self._mask = (1 << window) - 1
         self._sources: OrderedDict[str, _Source] = OrderedDict()
@@ -159,28 +172,35 @@ class SequenceTracker:
         self._sources.move_to_end(source)
         highest, expected = state.highest, state.highest + 1
         before = state.missing.bit_count()
-        if sequence > highest:
-            step = sequence - highest
-            if step <= self.window:
-                state.missing = ((state.missing << step) | ((1 << (step - 1)) - 1)) & self._mask
-            else:
-                state.missing = self._mask
-            state.highest = sequence
-            after = state.missing.bit_count()
-            kind = SequenceKind.NEXT if step == 1 else SequenceKind.GAP
-            return SequenceStatus(kind, source, sequence, expected, missing=step - 1,
-                                  outstanding=after, forgotten=before + step - 1 - after)
-        if sequence == 0 and highest > 0:
-            self._sources[source] = _Source(highest=0)
+        index = highest - 1 - sequence
+        late = 0 <= index < self.window and state.missing >> index & 1
+        if (sequence == 0 < highest) or (not late and abs(sequence - highest) > self.max_jump):
+            self._sources[source] = _Source(highest=sequence)
             return SequenceStatus(SequenceKind.RESTART, source, sequence, expected,
                                   forgotten=before)
-        index = highest - 1 - sequence
-        if 0 <= index < self.window and state.missing >> index & 1:
+        if sequence > highest:
+            return self._advance(state, source, sequence, before)
+        if late:
             state.missing &= ~(1 << index)
             return SequenceStatus(SequenceKind.LATE, source, sequence, expected,
                                   outstanding=before - 1)
         return SequenceStatus(SequenceKind.DUPLICATE, source, sequence, expected,
                               outstanding=before)
+
+    def _advance(self, state: _Source, source: str, sequence: int, before: int
+                 ) -> SequenceStatus:
+        """A number above the highest: mark the numbers skipped as missing."""
+        highest = state.highest
+        step = sequence - highest
+        if step <= self.window:
+            state.missing = ((state.missing << step) | ((1 << (step - 1)) - 1)) & self._mask
+        else:
+            state.missing = self._mask
+        state.highest = sequence
+        after = state.missing.bit_count()
+        kind = SequenceKind.NEXT if step == 1 else SequenceKind.GAP
+        return SequenceStatus(kind, source, sequence, highest + 1, missing=step - 1,
+                              outstanding=after, forgotten=before + step - 1 - after)
 
     def outstanding(self, source: str) -> int:
         """Numbers of ``source`` remembered as missing (0 for an unknown source)."""
@@ -202,6 +222,16 @@ class SequenceTracker:
         stops = np.flatnonzero(edges == -1) - 1
         base = state.highest - self.window  # number of position 0 after reversal
         return [(int(base + a), int(base + b)) for a, b in zip(starts, stops, strict=True)]
+
+    def committed_through(self, source: str) -> int | None:
+        """The last number of ``source`` with nothing missing at or below it (within
+        the window); None for an unknown source."""
+        state = self._sources.get(source)
+        if state is None:
+            return None
+        if not state.missing:
+            return state.highest
+        return state.highest - state.missing.bit_length() - 1
 
     def forget(self, source: str) -> None:
         """Drop a source's state (its next message counts as its first)."""
