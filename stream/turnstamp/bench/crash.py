@@ -4,8 +4,10 @@ The service runs as its own process; this process is the event builder, sending
 at full rate on a thread (messages are queued in ZeroMQ at every kill). Each cycle
 kills the service at one of: a random moment, while a checkpoint is being written
 (its temporary file exists), just after a file rotation, during start-up, or twice
-in quick succession. After each restart the sender resends what the archive lacks
-(``missing_after_restart``); at the end it resends until nothing is missing.
+in quick succession. After each restart the sender resends what the service reports
+missing on its control socket (``missing_reported``: the README's recipe), checked
+against the ledger in the files (``missing_after_restart``); at the end it resends
+until nothing is missing.
 
 Checked at the end: every event id exactly once in the archive; the counters of
 the final status equal what the files hold; every file that was ever seen closed
@@ -36,8 +38,9 @@ from ..demo import lantern_toml, site_toml
 from ..files.reader import END_OF_STREAM, read_stream, stream_files
 from ..files.schemas import OUTPUTS
 from ..wire.encode import encode_message
+from .crashcheck import check_folder
 
-__all__ = ["bench_crash", "missing_after_restart"]
+__all__ = ["bench_crash", "missing_after_restart", "missing_reported"]
 
 BATCH = 2_000
 SOURCE = "crash-bench"
@@ -62,6 +65,22 @@ def missing_after_restart(out: Path, source: str, sent: int, below_highest: bool
         accepted = {int(s) for s in sequences[keep & (sources == source)]}
     limit = (max(accepted) if accepted else -1) if below_highest else sent - 1
     return [s for s in range(min(sent - 1, limit) + 1) if s not in accepted]
+
+
+def missing_reported(control: str, source: str, sent: int, below_highest: bool = True
+                     ) -> list[int]:
+    """The same, from the service's own report (``wire.publisher.ask_sources``): its
+    missing ranges, and with ``below_highest=False`` everything sent above its
+    highest committed number."""
+    from ..wire.publisher import ask_sources
+
+    report = ask_sources(control, timeout_ms=30_000).get(source)
+    if report is None:
+        return [] if below_highest else list(range(sent))
+    wanted = [n for first, last in report["missing_ranges"] for n in range(first, last + 1)]
+    if not below_highest:
+        wanted += range(report["highest_sequence"] + 1, sent)
+    return wanted
 
 
 class _Sender:
@@ -124,8 +143,10 @@ class _Sender:
 RECIPES = '[[targets.recipes]]\nname = "all"\n'
 
 
-def _config(directory: Path, intake: int) -> Path:
+def _config(directory: Path, intake: int, control: int) -> Path:
     text = f"""
+[control]
+endpoint = "tcp://127.0.0.1:{control}"
 [intake]
 endpoints = ["tcp://127.0.0.1:{intake}"]
 {site_toml()}
@@ -239,11 +260,12 @@ def bench_crash(cycles: int = 20, seed: int = 9) -> dict:
     """Run ``cycles`` kill-and-restart cycles under a full-rate sender; check the folder."""
     rng = random.Random(seed)
     with tempfile.TemporaryDirectory(prefix="turnstamp-crash-", ignore_cleanup_errors=True) as tmp:
-        intake = _free_port()
-        config, out = _config(Path(tmp), intake), Path(tmp) / "out"
+        intake, control = _free_port(), _free_port()
+        config, out = _config(Path(tmp), intake, control), Path(tmp) / "out"
+        control = f"tcp://127.0.0.1:{control}"
         sender = _Sender(f"tcp://127.0.0.1:{intake}")
         folder = _Folder(out)
-        modes, resends = [], 0
+        modes, resends, disagree = [], 0, 0
         began = time.time()
         process = _start(config, out)
         try:
@@ -258,12 +280,15 @@ def bench_crash(cycles: int = 20, seed: int = 9) -> dict:
                 process = _cycle(mode, config, out, rng)
                 time.sleep(0.5)  # what was queued at the sender flows in first
                 queued = set(sender.resends)
-                missing = [m for m in missing_after_restart(out, SOURCE, sender.sent)
+                missing = [m for m in missing_reported(control, SOURCE, sender.sent)
                            if m not in queued]
+                disagree += missing != [m for m in missing_after_restart(out, SOURCE,
+                                                                          sender.sent)
+                                        if m not in queued]
                 sender.resends.extend(missing)
                 resends += len(missing)
             sender.paused.set()
-            resends += _resend_all(sender, out)
+            resends += _resend_all(sender, out, control)
             _stop(process)
             process = None
             folder.survey()
@@ -271,14 +296,15 @@ def bench_crash(cycles: int = 20, seed: int = 9) -> dict:
             if process is not None and process.poll() is None:
                 _kill(process)
             sender.close()
-        result = _check(out, folder, sender.sent)
+        result = check_folder(out, folder.closed, folder.changed, sender.sent * BATCH)
         result.update({"crash_cycles": cycles, "crash_modes": modes,
                        "crash_messages_sent": sender.sent, "crash_events_sent": sender.sent * BATCH,
-                       "crash_messages_resent": resends, "crash_seconds": time.time() - began})
+                       "crash_messages_resent": resends, "crash_seconds": time.time() - began,
+                       "crash_reports_unlike_the_files": disagree})
     return result
 
 
-def _resend_all(sender: _Sender, out: Path) -> int:
+def _resend_all(sender: _Sender, out: Path, control: str) -> int:
     """Resend until the ledger accepts every message sent; returns how many resent.
     Each round waits until the ledger stops growing (the queues have drained)."""
     resent = 0
@@ -290,8 +316,8 @@ def _resend_all(sender: _Sender, out: Path) -> int:
             now = len(read_stream(out, "ledger"))
             if now != rows:
                 rows, quiet_since = now, time.time()
-        missing = missing_after_restart(out, SOURCE, sender.sent, below_highest=False)
-        if not missing:
+        missing = missing_reported(control, SOURCE, sender.sent, below_highest=False)
+        if not missing and not missing_after_restart(out, SOURCE, sender.sent, False):
             return resent
         sender.resends.extend(missing)
         resent += len(missing)
@@ -311,69 +337,6 @@ def _free_port() -> int:
     return port
 
 
-def _check(out: Path, folder: _Folder, sent: int) -> dict:
-    """The end state: events once, counters = files, closed files unchanged, readable."""
-    archive = read_stream(out, "archive")
-    ledger = read_stream(out, "ledger")
-    rejects = read_stream(out, "rejects")
-    ids = archive["event_id"].to_numpy()
-    unique = np.unique(ids)
-    expected = np.arange(sent * BATCH, dtype=np.uint64)
-    counters = json.loads((out / "status.json").read_text())["counters"]
-    files = {
-        "events_received": int(ledger["events"].to_numpy().sum()),
-        "events_tagged": archive.num_rows,
-        "events_rejected": int(np.asarray(rejects["events"].to_numpy(), dtype=np.int64).sum()),
-        "messages_received": ledger.num_rows,
-    }
-    readers = _open_with_readers(out)
-    outcomes = np.array(ledger["outcome"].to_pylist(), dtype=object)
-    return {
-        "crash_duplicate_messages_refused": int((outcomes == "duplicate_message").sum()),
-        "crash_archive_rows": archive.num_rows,
-        "crash_events_archived_twice": int(ids.size - unique.size),
-        "crash_events_lost": int(np.setdiff1d(expected, unique).size),
-        "crash_events_not_sent_archived": int(np.setdiff1d(unique, expected).size),
-        "crash_counters_equal_files": all(counters.get(k) == v for k, v in files.items()),
-        "crash_counters": {k: counters.get(k) for k in files},
-        "crash_files": files,
-        "crash_closed_files": len(folder.closed),
-        "crash_closed_files_changed": folder.changed,
-        "crash_readers": readers,
-    }
-
-
-def _open_with_readers(out: Path) -> dict:
-    """Files that each downstream reader opened, of all closed files in ``out``."""
-    import importlib
-
-    import pyarrow as pa
-
-    paths = [p for stem in OUTPUTS for p in stream_files(out, stem)]
-    opened = {"files": len(paths), "pyarrow": 0}
-    libraries = {}
-    for name in ("pandas", "polars", "duckdb"):
-        try:
-            libraries[name] = importlib.import_module(name)
-            opened[name] = 0
-        except ImportError:
-            opened[name] = "not installed"
-    for path in paths:
-        with pa.memory_map(str(path)) as source:
-            arrow_table = pa.ipc.open_stream(source).read_all()
-        opened["pyarrow"] += 1
-        if "pandas" in libraries:
-            arrow_table.to_pandas()
-            opened["pandas"] += 1
-        if "polars" in libraries:
-            libraries["polars"].read_ipc_stream(path)
-            opened["polars"] += 1
-        if "duckdb" in libraries:
-            libraries["duckdb"].sql("SELECT count(*) FROM arrow_table").fetchall()
-            opened["duckdb"] += 1
-    return opened
-
-
 def crash_lines(result: dict) -> list[str]:
     """The benchmark's figures as text."""
     ok = (result["crash_events_archived_twice"] == 0 and result["crash_events_lost"] == 0
@@ -382,7 +345,8 @@ def crash_lines(result: dict) -> list[str]:
         f"crash cycles: {result['crash_cycles']} ({', '.join(result['crash_modes'])})",
         f"  messages sent {result['crash_messages_sent']:,} "
         f"({result['crash_events_sent']:,} events), resent {result['crash_messages_resent']:,}"
-        f" (refused as duplicates: {result['crash_duplicate_messages_refused']:,})",
+        f" (refused as duplicates: {result['crash_duplicate_messages_refused']:,}); reports "
+        f"of missing messages unlike the files: {result['crash_reports_unlike_the_files']}",
         f"  archived twice {result['crash_events_archived_twice']}, lost "
         f"{result['crash_events_lost']}, counters equal the files: "
         f"{result['crash_counters_equal_files']}",
