@@ -131,7 +131,7 @@ def test_every_event_sent_is_accounted_for_in_the_files(tmp_path, service_config
         files = stream_files(out, stem)
         assert files, stem
         for path in files:
-            table = pa.ipc.open_file(str(path)).read_all()  # closed files are complete
+            table = pa.ipc.open_stream(str(path)).read_all()  # closed files are complete
             assert table.schema.remove_metadata().equals(schema.remove_metadata()), stem
 
 
@@ -245,10 +245,11 @@ def _check_complete_after_restart(out: Path, total: int) -> None:
     assert archive.num_rows == counters["events_tagged"]
     ids = archive["event_id"].to_numpy()
     assert np.unique(ids).size == ids.size
-    # after SIGTERM every file is complete, with a footer
+    # after SIGTERM every file is complete, with its end-of-stream marker
     for stem in schemas.OUTPUTS:
         for path in stream_files(out, stem):
-            pa.ipc.open_file(str(path)).read_all()
+            assert path.read_bytes()[-8:] == b"\xff\xff\xff\xff\0\0\0\0"
+            pa.ipc.open_stream(str(path)).read_all()
     # statistics resumed: the final cumulative fold counts every archived 'all' event
     significance = read_stream(out, "significance").to_pylist()
     final = [r for r in significance if r["recipe"] == "all" and r["window"] == "cumulative"][-1]

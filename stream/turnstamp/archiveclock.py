@@ -1,7 +1,7 @@
 """The clock check of a finished night: the library behind ``turnstamp clock``.
 
 Theory of operation: an archive (one offline-tagged file, Arrow IPC or Parquet, or a
-service output folder of ``archive-*.arrow`` files) holds per event the site TT
+service output folder of ``archive-*.arrows`` files) holds per event the site TT
 instant and the barycentric correction applied. Each target's events of the chosen
 recipe are folded again with the given spin models (so a newer model can be tried on
 an old night), the moments binned by site time as the service does, and the same
@@ -97,7 +97,7 @@ def read_archive(path: Path) -> pa.Table:
     if path.is_dir():
         table = read_stream(path, "archive")
         if table.num_rows == 0:
-            raise InputError("archive", str(path), "no archive-*.arrow rows in this folder")
+            raise InputError("archive", str(path), "no archive-*.arrows rows in this folder")
     elif path.is_file():
         try:
             table = pq.read_table(path) if path.suffix.lower() == ".parquet" \

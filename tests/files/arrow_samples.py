@@ -107,14 +107,13 @@ def archive_columns(first_id: int, rows: int, batch: int = 0) -> dict:
 
 
 def same_rows(left: pa.Table, right: pa.Table) -> bool:
-    """Equal values, whatever the chunking and the per-batch dictionaries (the file
-    reader hands every batch the file's final dictionary, the stream reader the one
-    current at that batch)."""
+    """Equal values, whatever the chunking and the per-batch dictionaries."""
     return left.schema.equals(right.schema) and left.to_pydict() == right.to_pydict()
 
 
 def three_batch_file(tmp_path):
-    """A small archive file; returns (path, sizes after batch 1, 2, 3, full size, rows)."""
+    """A small closed archive file; returns (path, sizes after batch 1, 2, 3, full size
+    (the end-of-stream marker after batch 3), rows)."""
     sizes = []
     writer = RotatingArrowWriter(tmp_path / "src", "archive", OUTPUTS["archive"])
     parts = [archive_columns(i * 4, 4, i) for i in range(3)]

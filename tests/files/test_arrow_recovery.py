@@ -1,9 +1,9 @@
-"""Finishing partial files: truncation at every offset, corrupt and zero-filled tails,
+"""Ending killed files: truncation at every offset, corrupt and zero-filled tails,
 live writers, leftover temporaries, and real kill -9 at chosen and random points.
 
-The layout facts relied upon (magic, stream after 8 bytes, end-of-stream marker before
-the footer) are from the Arrow columnar format specification, "IPC File Format"; the
-tests below check them against pyarrow rather than trusting them.
+The layout facts relied upon (a stream of messages closed by the end-of-stream
+marker) are from the Arrow columnar format specification, "IPC Streaming Format";
+the tests below check them against pyarrow rather than trusting them.
 """
 
 from __future__ import annotations
@@ -31,7 +31,7 @@ from turnstamp.files.reader import (
     read_stream,
     stream_files,
 )
-from turnstamp.files.recovery import recover_partial_files
+from turnstamp.files.recovery import finish_file, recover_partial_files
 from turnstamp.files.schemas import OUTPUTS
 from turnstamp.files.writer import RotatingArrowWriter
 
@@ -45,11 +45,8 @@ def test_truncation_at_every_offset_of_the_last_batch(tmp_path):
     cut_dir.mkdir()
     target = cut_dir / path.name
     tails = set()
-    # every offset of the last batch (dictionary delta and batch) and of the end-of-stream
-    # marker; the footer sampled every third byte and at its last bytes
-    cuts = {*range(end2, end3 + 64), *range(end3 + 64, full, 3), *range(full - 16, full + 1)}
     target.write_bytes(data)
-    for cut in sorted(cuts, reverse=True):
+    for cut in range(full, end2 - 1, -1):  # every offset of the last batch and the marker
         os.truncate(target, cut)
         table, info = read_arrow_file_report(target)
         kept = 3 if cut >= end3 else 2
@@ -58,46 +55,52 @@ def test_truncation_at_every_offset_of_the_last_batch(tmp_path):
         assert table.column("event_id").to_pylist() == ids[:4 * kept]
         assert info.bytes_ignored == (0 if cut == full else cut - (end3 if kept == 3 else end2))
         tails.add(info.tail)
-        if cut % 29 == 0 or cut in (end2, end2 + 1, end3 - 1, end3, end3 + 8, full - 1, full):
+        if cut % 29 == 0 or cut in (end2, end2 + 1, end3 - 1, end3, end3 + 4, full - 1, full):
             reports = recover_partial_files(cut_dir)
             if cut == full:
                 assert reports == []
             else:
                 (report,) = reports
-                assert report.action == "rewritten" and report.batches_kept == kept
+                assert report.action == "ended" and report.batches_kept == kept
                 assert report.bytes_dropped == info.bytes_ignored
-                reader = pa.ipc.open_file(target)
-                assert reader.num_record_batches == kept
-                assert reader.read_all().column("event_id").to_pylist() == ids[:4 * kept]
+                assert target.read_bytes() == data[:end3 if kept == 3 else end2] + data[end3:]
                 assert recover_partial_files(cut_dir) == []  # idempotent
             target.write_bytes(data)  # the original bytes again for the next, shorter cut
-    assert tails == {"footer", "message_boundary", "truncated_message", "end_of_stream"}
+    assert tails == {"end_of_stream", "message_boundary", "truncated_message"}
+
+
+def test_a_closed_file_is_never_rewritten(tmp_path):
+    path, (end1, _, _), _, _ = three_batch_file(tmp_path)
+    before = path.read_bytes()
+    report = finish_file(path, keep_batches=1)  # even when asked to drop batches
+    assert report.action == "left_alone" and path.read_bytes() == before
 
 
 def test_corrupt_tail_is_read_up_to_the_damage_and_left_alone(tmp_path):
     path, (end1, end2, end3), _, ids = three_batch_file(tmp_path)
-    data = bytearray(path.read_bytes()[:end3])
-    data[end1:end1 + 4] = b"\x00\x01\x02\x03"  # batch 2's first frame loses its marker
+    garbage = b"\xff\xff\xff\xff" + (16).to_bytes(4, "little") + bytes(16)
+    data = path.read_bytes()[:end1] + garbage + path.read_bytes()[end1:end3]
     target = tmp_path / path.name
-    target.write_bytes(bytes(data))
+    target.write_bytes(data)
     table, info = read_arrow_file_report(target)
     assert info.tail == "corrupt" and info.batches == 1
     assert table.column("event_id").to_pylist() == ids[:4]
     (report,) = recover_partial_files(tmp_path)
     assert report.action == "left_alone"
-    assert target.read_bytes() == bytes(data)  # untouched for a human to look at
+    assert target.read_bytes() == data  # untouched for a human to look at
 
 
 def test_zero_filled_tail_is_treated_as_truncation(tmp_path):
     # the tail a file system may leave after a power cut (size grew, data never came)
-    path, (_, _, end3), _, ids = three_batch_file(tmp_path)
+    path, (_, _, end3), full, ids = three_batch_file(tmp_path)
     target = tmp_path / path.name
     target.write_bytes(path.read_bytes()[:end3] + bytes(4096))
     table, info = read_arrow_file_report(target)
-    assert (info.tail, info.batches, info.bytes_ignored) == ("zero_fill", 3, 4096)
+    assert (info.batches, info.bytes_ignored) == (3, 4096)
     (report,) = recover_partial_files(tmp_path)
-    assert report.action == "rewritten" and report.batches_kept == 3
-    assert pa.ipc.open_file(target).read_all().column("event_id").to_pylist() == ids
+    assert report.action == "ended" and report.batches_kept == 3
+    assert target.read_bytes() == path.read_bytes()
+    assert pa.ipc.open_stream(target.read_bytes()).read_all().column("event_id").to_pylist() == ids
 
 
 def test_open_file_is_readable_and_not_touched_by_recovery(tmp_path):
@@ -114,7 +117,7 @@ def test_open_file_is_readable_and_not_touched_by_recovery(tmp_path):
     writer.write(archive_columns(20, 10, 2))
     writer.close()
     assert recover_partial_files(tmp_path) == []
-    assert pa.ipc.open_file(open_path).read_all().num_rows == 30
+    assert pa.ipc.open_stream(open_path.read_bytes()).read_all().num_rows == 30
 
 
 def test_leftover_temporaries_are_cleaned_without_touching_data(tmp_path):
@@ -122,7 +125,7 @@ def test_leftover_temporaries_are_cleaned_without_touching_data(tmp_path):
         name = writer.write(archive_columns(0, 5)).file_name
     published = (tmp_path / name).read_bytes()
     os.link(tmp_path / name, tmp_path / f".{name}.part")  # killed between link and unlink
-    (tmp_path / f".{name}.{'0' * 32}.recover").write_bytes(published[:100])  # interrupted
+    (tmp_path / f".checkpoint.arrow.{'0' * 32}.tmp").write_bytes(published[:100])  # interrupted
     reports = recover_partial_files(tmp_path)
     assert sorted(r.action for r in reports) == ["removed", "removed"]
     assert os.listdir(tmp_path) == [name] and (tmp_path / name).read_bytes() == published
@@ -130,7 +133,7 @@ def test_leftover_temporaries_are_cleaned_without_touching_data(tmp_path):
 
 
 def test_not_an_arrow_file(tmp_path):
-    target = tmp_path / "archive-20261201T200000Z-00001.arrow"
+    target = tmp_path / "archive-20261201T200000Z-00001.arrows"
     target.write_bytes(b"PAR1 not ours")
     with pytest.raises(ArrowFileError, match="magic"):
         read_arrow_file(target)
@@ -186,10 +189,10 @@ CHILD = textwrap.dedent("""
         if batch == 5:
             if mode == "kill_mid_batch":  # half of the sixth batch reaches the file
                 DyingFile.die_at = sizes[-1] + (sizes[-1] - sizes[-2]) // 2
-            if mode == "kill_mid_footer":  # rotation dies 40 bytes into its footer
-                DyingFile.die_at = sizes[-1] + 40
+            if mode == "kill_mid_marker":  # rotation dies 4 bytes into its end marker
+                DyingFile.die_at = sizes[-1] + 4
                 writer.rotate()
-            if mode == "kill_after_footer":  # footer flushed, fsync never happens
+            if mode == "kill_after_marker":  # marker flushed, fsync never happens
                 os.fsync = die
                 writer.rotate()
             if mode == "kill_before_publish":  # next file's first batch never published
@@ -231,7 +234,7 @@ def _check_after_kill(directory, reported, rows):
     files = stream_files(directory, "archive")
     assert files, "the child wrote nothing"
     for path in files[:-1]:  # every closed file is complete
-        pa.ipc.open_file(path).read_all()
+        assert read_arrow_file_report(path)[1].complete
     _, newest = read_arrow_file_report(files[-1])  # complete or partial, never raises
     before = read_stream(directory, "archive")
     ids = before.column("event_id").to_numpy()
@@ -240,9 +243,10 @@ def _check_after_kill(directory, reported, rows):
     np.testing.assert_array_equal(ids, np.arange(len(ids)))
 
     reports = recover_partial_files(directory)
-    assert all(r.action in ("rewritten", "removed") for r in reports), reports
+    assert all(r.action in ("ended", "removed") for r in reports), reports
     for path in stream_files(directory, "archive"):
-        assert pa.ipc.open_file(path).schema.metadata[b"turnstamp.run"]  # metadata kept
+        table = pa.ipc.open_stream(path.read_bytes()).read_all()  # closed, readable
+        assert table.schema.metadata[b"turnstamp.run"]  # metadata kept
     after = read_stream(directory, "archive")
     assert same_rows(after, before)
     assert recover_partial_files(directory) == []
@@ -261,10 +265,10 @@ def test_kill_at_a_random_point(tmp_path, kill_after, delay):
 
 
 KILL_POINTS = {  # mode: (tail of the newest file, recovery actions)
-    "kill_mid_batch": ("truncated_message", ["rewritten"]),
-    "kill_mid_footer": ("end_of_stream", ["rewritten"]),
-    "kill_after_footer": ("footer", []),
-    "kill_before_publish": ("footer", ["removed"]),
+    "kill_mid_batch": ("truncated_message", ["ended"]),
+    "kill_mid_marker": ("truncated_message", ["ended"]),
+    "kill_after_marker": ("end_of_stream", []),
+    "kill_before_publish": ("end_of_stream", ["removed"]),
 }
 
 

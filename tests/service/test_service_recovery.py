@@ -1,14 +1,13 @@
 """A crash: every count, reasons included, comes back from the checkpoint and the files;
 only the message in flight is lost."""
 
-import json
-
 import numpy as np
 
 from turnstamp.config import load_config
 from turnstamp.core.simulate import NightPlan, simulate_night
 from turnstamp.files.outputs import archive_tables, message_reject_table
 from turnstamp.files.reader import read_stream
+from turnstamp.service.checkpoint import read_checkpoint
 from turnstamp.service.loop import Service
 from turnstamp.wire.encode import encode_message
 
@@ -31,14 +30,16 @@ def _frames(batch):
 
 def _crash_with_a_message_in_flight(service: Service, batch) -> None:
     """Its archive and rejects rows are out, its ledger row is not; then every file
-    is left as it is (closed here: one process cannot hold two writers' locks)."""
+    is left as a killed process leaves it: no end written, locks released."""
     result = service.pipeline.feed(batch)
     for table in archive_tables(batch, result, service.pipeline.targets):
         service.writers["archive"].write(table)
     service.writers["rejects"].write(message_reject_table(
         0, batch.source, batch.sequence, "bad_value", "in flight", len(batch), 0))
     for writer in service.writers.values():
-        writer.close()
+        if writer._open is not None:
+            writer._open.handle.close()
+            writer._open = None
 
 
 def test_a_crash_loses_only_the_message_in_flight(tmp_path, service_config, demo_env, lantern,
@@ -50,7 +51,7 @@ def test_a_crash_loses_only_the_message_in_flight(tmp_path, service_config, demo
     for batch in batches[:4]:
         live.handle(_frames(batch), RECEIVED)
     live.checkpoint()
-    saved = json.loads((out / "checkpoint.json").read_text())
+    saved = read_checkpoint(out)
     assert saved["counters"]["rejected_by_reason"] == {"bad_time": 5}
     live.handle([b"not json", b"\x00\x01"], RECEIVED)  # after the checkpoint: replayed
     live.handle(_frames(batches[1]), RECEIVED)  # a duplicate
@@ -75,3 +76,33 @@ def test_a_crash_loses_only_the_message_in_flight(tmp_path, service_config, demo
     assert 7 not in set(archive["sequence"].to_pylist())
     rejects = read_stream(out, "rejects")
     assert "bad_value" not in set(rejects["reason"].to_pylist())
+
+
+def test_a_refused_repeat_in_flight_is_not_taken_for_the_message_it_repeats(
+        tmp_path, service_config, demo_env, lantern, night_start_tt):
+    # message 2 had five bad times (its own rejects rows); its repeat, refused as a
+    # duplicate with the same (source, sequence), dies with only its rejects row out
+    config = load_config(service_config())
+    out = tmp_path / "out"
+    batches = _night(demo_env, lantern, night_start_tt)
+    live = Service(config)
+    live.checkpoint()
+    for batch in batches[:3]:
+        live.handle(_frames(batch), RECEIVED)
+    committed = live.counters.to_state()
+    admitted = live.admission.admit(_frames(batches[2]), 0)  # the repeat: refused
+    live.writers["rejects"].write(admitted.row)
+    for writer in live.writers.values():
+        if writer._open is not None:
+            writer._open.handle.close()
+            writer._open = None
+
+    resumed = Service(config)
+    try:
+        assert resumed.counters.to_state() == committed
+        assert resumed.counters.rejected_by_reason == {"bad_time": 5}
+    finally:
+        for writer in resumed.writers.values():
+            writer.close()
+    reasons = read_stream(out, "rejects")["reason"].to_pylist()
+    assert "duplicate_message" not in reasons

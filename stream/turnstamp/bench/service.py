@@ -196,7 +196,7 @@ def bench_service(quick: bool = False, soak_s: float = 0.0) -> dict:
             })
         finally:
             service.stop()
-        archive = sum(f.stat().st_size for f in Path(tmp, "out").glob("archive-*.arrow"))
+        archive = sum(f.stat().st_size for f in Path(tmp, "out").glob("archive-*.arrow*"))
         results["service_archive_bytes_per_event"] = archive / total
     if soak_s:  # a fresh service: the burst's freed buffers would blur the picture
         with tempfile.TemporaryDirectory(prefix="turnstamp-soak-") as tmp:

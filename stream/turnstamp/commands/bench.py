@@ -26,6 +26,12 @@ def add_parser(subparsers) -> None:
     p.add_argument("--clock", action="store_true",
                    help="instead: the clock verdict's statistics (offset efficiency and "
                         "coverage, false alarms on clean nights, reach); default off")
+    p.add_argument("--crash-cycles", type=int, default=0, metavar="N",
+                   help="instead: N kill -9 and restart cycles of the service under a "
+                        "full-rate sender, then check the folder (default 0: none)")
+    p.add_argument("--night-hours", type=float, default=0.0, metavar="H",
+                   help="instead: service throughput with H hours of retained statistics "
+                        "against an empty night (default 0: none)")
     p.add_argument("--fuzz", type=int, default=0, metavar="N",
                    help="instead: N hostile messages at the intake and the control socket "
                         "of fresh services, junk first (default 0: none)")
@@ -39,6 +45,8 @@ def add_parser(subparsers) -> None:
 
 def run(args) -> int:
     """One section of benchmarks, printed as text or JSON; exit 1 if a pass/fail one failed."""
+    if args.crash_cycles or args.night_hours:
+        return _service_endurance(args)
     if args.clock:
         from ..bench.clock import bench_clock, clock_lines
 
@@ -66,3 +74,22 @@ def show(args, results: dict, lines) -> int:
 
     print(json.dumps(results, indent=2) if args.json else "\n".join(lines(results)))
     return 0
+
+
+def _service_endurance(args) -> int:
+    """Crash cycles and/or a full night; exit 1 if the crash cycles lost or doubled data."""
+    results, lines, passed = {}, [], True
+    if args.crash_cycles:
+        from ..bench.crash import bench_crash, crash_lines, crash_passed
+
+        results.update(bench_crash(args.crash_cycles))
+        lines += crash_lines(results)
+        passed = crash_passed(results)
+    if args.night_hours:
+        from ..bench.night import bench_night, night_lines
+
+        night = bench_night(args.night_hours, quick=args.quick)
+        results.update(night)
+        lines += night_lines(night)
+    show(args, results, lambda _: lines)
+    return 0 if passed else 1

@@ -191,7 +191,7 @@ def _output_folder(folder: Path, found: Findings) -> None:
     if not writable:
         found.problems.append(f"output.directory = {str(folder)!r}: {existing} is not "
                               "writable by this user")
-    elif folder.exists() and any(folder.glob("ledger-*.arrow")):
+    elif folder.exists() and any(folder.glob("ledger-*.arrow*")):
         found.warnings.append(f"output.directory = {str(folder)!r} holds an earlier run: the "
                               "service resumes it (counts and statistics continue)")
 

@@ -12,7 +12,7 @@ def add_parser(subparsers) -> None:
         "clock", help="check the clock chain of a night from its archive (offline-tagged "
                       "file or service output folder)")
     p.add_argument("archive", help="archive file (.arrow or .parquet) from 'turnstamp tag', or "
-                                   "a service output folder holding archive-*.arrow")
+                                   "a service output folder holding archive-*.arrows")
     p.add_argument("--model", action="append", required=True, metavar="[TARGET=]FILE",
                    help="spin model (TOML/JSON); repeat for several validity windows; with "
                         "several targets in the archive write TARGET=FILE (required)")

@@ -104,10 +104,10 @@ def inspect_path(path: Path, rows: int = 5, as_json: bool = False) -> str:
 
 
 def _folder(path: Path, as_json: bool) -> str:
-    files = sorted([*path.glob("*.arrow"), *path.glob("*.parquet")])
+    files = sorted([*path.glob("*.arrow"), *path.glob("*.arrows"), *path.glob("*.parquet")])
     status = path / "status.json"
     if not files and not status.exists():
-        raise InputError("path", str(path), "holds no output (.arrow or .parquet files, "
+        raise InputError("path", str(path), "holds no output (.arrows, .arrow or .parquet files, "
                                             "status.json): not an output folder")
     streams: dict[str, dict] = {}
     for file in files:

@@ -13,7 +13,7 @@ __all__ = ["add_parser", "run"]
 def add_parser(subparsers) -> None:
     p = subparsers.add_parser("stack",
                               help="stack the statistics of several nights' output folders")
-    p.add_argument("folders", nargs="+", help="output folders (their checkpoint.json)")
+    p.add_argument("folders", nargs="+", help="output folders (their checkpoint.arrow)")
     p.add_argument("--out", metavar="FILE",
                    help="write the stacked state to this JSON file (default: not written)")
     p.add_argument("--force", action="store_true", help="overwrite --out if it exists")
@@ -32,7 +32,7 @@ def run(args) -> int:
     for folder in args.folders:
         checkpoint = read_checkpoint(Path(folder))
         if checkpoint is None:
-            raise InputError("folder", folder, "has no readable checkpoint.json")
+            raise InputError("folder", folder, "has no readable checkpoint.arrow")
         states.append(checkpoint["pipeline"])
         labels.append(str(folder))
     merged = stack_states(states, labels)

@@ -20,6 +20,7 @@ import numpy as np
 from turnstamp.errors import InputError
 
 from .harmonicsums import shared_segment_sums
+from .intervalsegments import interval_segments, timed_event_arrays
 from .moments import DEFAULT_BINS, MAX_HARMONICS, PhaseMoments, positive_int
 from .momentstate import STATE_VERSION, check_keys, state_int
 
@@ -53,14 +54,11 @@ class TimeBinnedMoments:
         self._intervals: dict[int, PhaseMoments] = {}
         self._expired = PhaseMoments(self.harmonics, self.bins)
         self._expired_through: int | None = None  # largest folded interval index
+        # (k, expired + intervals <= k summed in index order): total() adds only the
+        # intervals after k, in the same order, so its result is bit for bit the same
+        self._prefix: tuple[int, PhaseMoments] | None = None
 
     # -- accumulation ----------------------------------------------------------------------
-
-    def _slot(self, index: int) -> PhaseMoments:
-        moments = self._held(index)
-        if moments is None:
-            moments = self._intervals[index] = PhaseMoments(self.harmonics, self.bins)
-        return moments
 
     def _held(self, index: int) -> PhaseMoments | None:
         """The moments interval ``index`` adds to (the expired total for an expired one),
@@ -82,6 +80,8 @@ class TimeBinnedMoments:
 
     def _add_found(self, intervals: list[int], found, weighted: bool, newest: int) -> None:
         """Add the kernel's per-interval sums (row i: interval ``intervals[i]``)."""
+        if self._prefix is not None and intervals and min(intervals) <= self._prefix[0]:
+            self._prefix = None  # late events for an interval inside the cached sum
         for row, interval in enumerate(intervals):
             held = self._held(interval)
             if held is None:
@@ -106,6 +106,7 @@ class TimeBinnedMoments:
             return
         for index in sorted(i for i in self._intervals if i <= through):
             self._expired += self._intervals.pop(index)
+            self._prefix = None
         self._expired_through = through
 
     # -- queries ---------------------------------------------------------------------------
@@ -157,9 +158,26 @@ class TimeBinnedMoments:
                 for index in sorted(self._intervals)]
 
     def total(self) -> PhaseMoments:
-        """Everything ever added, including expired intervals."""
-        result = self._expired.copy()
-        for index in sorted(self._intervals):
+        """Everything ever added, including expired intervals: the expired total plus
+        every interval in index order (the sum up to all but the newest two intervals
+        is kept between calls, so a call late in a night adds only a few)."""
+        if self._prefix is None:
+            ordered = sorted(self._intervals)
+            through = ordered[-3] if len(ordered) > 2 else None
+            if through is None:
+                result = self._expired.copy()
+                for index in ordered:
+                    result += self._intervals[index]
+                return result
+            prefix = self._expired.copy()
+            for index in ordered:
+                if index > through:
+                    break
+                prefix += self._intervals[index]
+            self._prefix = (through, prefix)
+        through, prefix = self._prefix
+        result = prefix.copy()
+        for index in sorted(i for i in self._intervals if i > through):
             result += self._intervals[index]
         return result
 
@@ -199,6 +217,7 @@ class TimeBinnedMoments:
         return other
 
     def _add_in_place(self, other: TimeBinnedMoments) -> TimeBinnedMoments:
+        self._prefix = None
         # An interval expired on either side is expired in the result; otherwise a
         # window over it would silently miss the other side's events.
         self._expired += other._expired
@@ -312,26 +331,6 @@ def _matching_moments(state, field, harmonics, bins) -> PhaseMoments:
     return moments
 
 
-def _timed_event_arrays(times_ns, phases, weight_sets):
-    """Times (int64 ns), phases and each weight set as vectors of one length (their
-    values are checked by the kernel before any interval is touched)."""
-    times = np.asarray(times_ns).reshape(-1)
-    if times.dtype.kind not in "iu":
-        raise TypeError(f"times_ns must be integer nanoseconds, got dtype {times.dtype}")
-    times = times.astype(np.int64, copy=False)
-    phases = np.ascontiguousarray(phases, dtype=np.float64).reshape(-1)
-    if phases.shape != times.shape:
-        raise ValueError(f"phases has {phases.size} values but times_ns has {times.size}")
-    weights = []
-    for w in weight_sets:
-        if w is not None:
-            w = np.ascontiguousarray(w, dtype=np.float64).reshape(-1)
-            if w.shape != times.shape:
-                raise ValueError(f"weights has {w.size} values but times_ns has {times.size}")
-        weights.append(w)
-    return times, phases, weights
-
-
 def update_together(binned: Sequence[TimeBinnedMoments], times_ns, phases,
                     weight_sets: Sequence) -> None:
     """Add the same events to several accumulators of one shape, each with its own
@@ -352,11 +351,11 @@ def update_together(binned: Sequence[TimeBinnedMoments], times_ns, phases,
     if len(shape) != 1 or len(weight_sets) != len(binned):
         raise ValueError(f"accumulators of one shape and one weight set each, got {shape} "
                          f"and {len(weight_sets)} weight sets for {len(binned)}")
-    times, phases, weights = _timed_event_arrays(times_ns, phases, weight_sets)
+    times, phases, weights = timed_event_arrays(times_ns, phases, weight_sets)
     if times.size == 0:
         return
     first = binned[0]
-    intervals, starts, order = _interval_segments(times, first.interval_ns)
+    intervals, starts, order = interval_segments(times, first.interval_ns)
     if order is not None:
         phases = phases[order]
         weights = [None if w is None else w[order] for w in weights]
@@ -364,33 +363,3 @@ def update_together(binned: Sequence[TimeBinnedMoments], times_ns, phases,
     newest = int(times.max())
     for accumulator, sums, w in zip(binned, found, weights, strict=True):
         accumulator._add_found(intervals.tolist(), sums, w is not None, newest)
-
-
-def _interval_segments(times, interval_ns):
-    """Intervals present (ascending), the first event of each, and the order that
-    sorts the events by interval (None when they are in order already).
-
-    A time-sorted batch (the usual case) is cut at the interval boundaries found by
-    binary search (no pass computing every event's interval); any other is first
-    sorted (stably) by interval.
-    """
-    if times.size > 1 and not (times[1:] >= times[:-1]).all():
-        index = times // interval_ns
-        order = np.argsort(index, kind="stable")
-        index = index[order]
-        starts = np.concatenate([_FIRST, np.flatnonzero(index[1:] != index[:-1]) + 1])
-        return index[starts], starts, order
-    first, last = int(times[0]) // interval_ns, int(times[-1]) // interval_ns
-    if first == last:
-        return np.array([first]), _FIRST, None
-    if last - first > times.size:  # sparse over a long span: cut where the index changes
-        index = times // interval_ns
-        starts = np.concatenate([_FIRST, np.flatnonzero(index[1:] != index[:-1]) + 1])
-        return index[starts], starts, None
-    intervals = np.arange(first, last + 1)
-    starts = np.concatenate([_FIRST, np.searchsorted(times, intervals[1:] * interval_ns)])
-    filled = np.diff(starts, append=times.size) > 0
-    return intervals[filled], starts[filled], None
-
-
-_FIRST = np.zeros(1, dtype=np.intp)

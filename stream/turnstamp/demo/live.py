@@ -95,7 +95,7 @@ def run_demo(out: Path, seconds: float = 60.0, rate: float = 20_000.0,
     ``fault``), writing into ``out``; returns the exit status (1: the service or the
     simulator failed, or the accounting did not reconcile)."""
     out = Path(out).resolve()
-    if out.exists() and any(out.glob("*.arrow")):
+    if out.exists() and any(out.glob("*.arrow*")):
         stamp = time.strftime("%Y%m%dT%H%M%S")
         out = out / stamp  # never mix two runs' files
     out.mkdir(parents=True, exist_ok=True)
@@ -191,10 +191,10 @@ def _summary(out: Path, log_lines: list[str]) -> int:
           f"rejected {c.get('events_rejected', 0):,}: {'reconciled' if balanced else 'MISMATCH'}")
     print(f"\nfiles in {out}:")
     for stem in ("archive", "significance", "profiles", "clock", "ledger", "rejects"):
-        files = sorted(out.glob(f"{stem}-*.arrow"))
+        files = sorted(out.glob(f"{stem}-*.arrow*"))
         size = sum(f.stat().st_size for f in files)
         print(f"  {stem:13s} {len(files)} file(s), {size / 1e6:6.1f} MB")
-    print("  status.json, checkpoint.json, demo.toml")
+    print("  status.json, checkpoint.arrow, demo.toml")
     print(f"\nnext: turnstamp report {out}    (night report as HTML + PNG)")
     print(f"      turnstamp inspect {out}")
     errors = [line for line in log_lines if "Traceback" in line or "ERROR" in line]

@@ -1,18 +1,11 @@
-"""Batches fitted to a file's schema, and one growing dictionary per column and file.
+"""Batches fitted to a file's schema.
 
 ``conform_batch`` turns what a caller hands a writer (a record batch, a table or a
 mapping of columns) into a batch of exactly the stream's schema: columns matched by
 name, cast only where the cast is meaningful and safe, omitted nullable columns
 filled with nulls; anything else raises :class:`~turnstamp.errors.SchemaMismatchError`
-naming the column.
-
-The Arrow IPC file format forbids replacing a dictionary between batches
-("Dictionary replacement detected when writing IPC file format") but accepts
-*delta* dictionaries (``WRITE_OPTIONS``: ``emit_dictionary_deltas=True``), which
-``pa.ipc.open_file`` reads back. :class:`DictionaryUnifier` therefore keeps one
-growing dictionary per dictionary column and file, remapping each batch's indices
-onto it, so that every batch's dictionary extends the previous one and only the new
-values are written.
+naming the column. Dictionary columns keep each batch's own dictionary: the IPC
+stream format the writers use allows a dictionary to be replaced between batches.
 """
 
 from __future__ import annotations
@@ -21,62 +14,13 @@ from collections.abc import Mapping
 
 import numpy as np
 import pyarrow as pa
-import pyarrow.compute as pc
 
 from ..errors import SchemaMismatchError
 
-__all__ = ["WRITE_OPTIONS", "RESERVED_KEYS", "DictionaryUnifier", "checked_metadata",
-           "row_count", "conform_batch"]
-
-WRITE_OPTIONS = pa.ipc.IpcWriteOptions(emit_dictionary_deltas=True)
-"""IPC options of every file written: dictionaries grow by deltas."""
+__all__ = ["RESERVED_KEYS", "checked_metadata", "row_count", "conform_batch"]
 
 RESERVED_KEYS = ("turnstamp.stream", "turnstamp.opened_utc", "turnstamp.file_counter")
 """Schema metadata keys the writer sets itself."""
-
-
-class DictionaryUnifier:
-    """Keeps one growing dictionary per top-level dictionary column of a file.
-
-    Each batch's indices are remapped onto the running dictionary, so consecutive
-    batches carry dictionaries that extend each other and pyarrow writes deltas,
-    which the IPC file format accepts (replacements it refuses).
-    """
-
-    def __init__(self, schema: pa.Schema):
-        self._columns = [i for i, field in enumerate(schema) if pa.types.is_dictionary(field.type)]
-        self._values: dict[int, list] = {i: [] for i in self._columns}
-        self._lookup: dict[int, dict] = {i: {} for i in self._columns}
-        self._arrays: dict[int, pa.Array] = {
-            i: pa.array([], type=schema.field(i).type.value_type) for i in self._columns}
-
-    def apply(self, batch: pa.RecordBatch) -> pa.RecordBatch:
-        """``batch`` with every dictionary column re-indexed onto the file's dictionary."""
-        if not self._columns:
-            return batch
-        columns = list(batch.columns)
-        for i in self._columns:
-            column = columns[i]
-            if column.dictionary.equals(self._arrays[i]):
-                continue
-            values, lookup = self._values[i], self._lookup[i]
-            local = column.dictionary.to_pylist()
-            remap = np.empty(len(local), dtype=np.int64)
-            grew = False
-            for k, value in enumerate(local):
-                index = lookup.get(value)
-                if index is None:
-                    index = lookup[value] = len(values)
-                    values.append(value)
-                    grew = True
-                remap[k] = index
-            if grew:
-                self._arrays[i] = pa.array(values, type=column.type.value_type)
-            index_type = column.type.index_type
-            indices = pc.take(pa.array(remap).cast(index_type), column.indices)
-            columns[i] = pa.DictionaryArray.from_arrays(
-                indices, self._arrays[i], ordered=column.type.ordered)
-        return pa.RecordBatch.from_arrays(columns, schema=batch.schema)
 
 
 def checked_metadata(metadata: Mapping[str, str] | None) -> dict[str, str]:

@@ -21,7 +21,8 @@ try:  # POSIX only; without it recovery cannot see live writers (documented cave
 except ImportError:  # pragma: no cover - not on our platforms
     fcntl = None  # type: ignore[assignment]
 
-__all__ = ["atomic_write_text", "atomic_write_json", "publish", "try_lock", "fsync_directory"]
+__all__ = ["atomic_write_bytes", "atomic_write_text", "atomic_write_json", "publish",
+           "try_lock", "fsync_directory"]
 
 
 def atomic_write_text(path: str | Path, text: str, *, encoding: str = "utf-8") -> None:
@@ -41,8 +42,13 @@ def atomic_write_text(path: str | Path, text: str, *, encoding: str = "utf-8") -
     encoding : str, optional
         Text encoding (UTF-8).
     """
+    atomic_write_bytes(path, text.encode(encoding))
+
+
+def atomic_write_bytes(path: str | Path, data: bytes) -> None:
+    """Replace ``path`` with ``data`` atomically (see ``atomic_write_text``); the
+    temporary is ``.{name}.{32 hex digits}.tmp``, which start-up removes if left."""
     path = Path(path)
-    data = text.encode(encoding)
     temp = path.parent / f".{path.name}.{uuid.uuid4().hex}.tmp"
     fd = os.open(temp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
     try:

@@ -56,18 +56,26 @@ class Ledger:
         self.rejects = rejects
         self.ledger = ledger
         self.counters = counters if counters is not None else Counters()
+        self.in_commit = False
+        """True while a message's rows are being written (its ledger row not yet out)."""
 
     def commit(self, record: MessageRecord, archive: Iterable[pa.Table] = (),
                rejects: Iterable[pa.Table] = ()) -> None:
         """Write one message's rows in commit order; count it once its ledger row
         is out."""
         rejects = list(rejects)
+        self.in_commit = True
+        for stream in (self.archive, self.rejects, self.ledger):
+            rotate = getattr(stream, "check_rotation", None)
+            if rotate is not None:  # between messages: one message's rows never straddle
+                rotate()
         for table in archive:
             self.archive.write(table)
         for table in rejects:
             self.rejects.write(table)
         if self.ledger is not None:
             self.ledger.write(ledger_table([record.row()]))
+        self.in_commit = False
         for table in rejects:
             count_rejects(self.counters, table)
         self.counters.add_message(record)

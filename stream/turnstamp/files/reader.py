@@ -3,32 +3,19 @@
 Theory of operation
 -------------------
 Every output stream (``archive``, ``significance``, ...) is a sequence of Arrow IPC
-*file format* files ``{stem}-{UTC start YYYYmmddTHHMMSSZ}-{counter:05d}.arrow``
-(written by :mod:`turnstamp.files.writer`); their layout is drawn in
-:mod:`turnstamp.files.message_scan`.
+*stream format* files ``{stem}-{UTC start YYYYmmddTHHMMSSZ}-{counter:05d}.arrows``
+(written by :mod:`turnstamp.files.writer`): a schema message, dictionary and
+record-batch messages, and, once closed, the end-of-stream marker
+(``0xFFFFFFFF 0x00000000``). Files of the IPC *file format* (``.arrow``, with the
+``ARROW1`` magic and a footer) are read too: inputs, and folders of older versions.
 
-What we verified with pyarrow (26.0; the tests keep checking it):
-
-* ``pa.ipc.new_file`` writes nothing until the first batch (or ``close``): the magic,
-  the schema and the dictionaries go out together with the first record batch.
-* ``close`` writes the end-of-stream marker, then the footer and trailing magic.
-* A stream reader opened on ``bytes[8:]`` reads every batch of a complete file and
-  stops at the end-of-stream marker, and one opened on a file cut anywhere stops
-  after the last complete message: a cut inside a message raises ``ArrowInvalid``
-  ("Expected to read N metadata bytes ...", "Corrupted message ...") or ``OSError``
-  ("Expected to be able to read N bytes for message body ...") when that message is
-  requested, and a cut exactly on a message boundary ends the stream cleanly. It
-  never hands out a partial batch. After each ``read_next_batch`` (and each
-  ``pa.ipc.read_message``) the source position is exactly the end of that message.
-* ``pa.ipc.open_file`` hands every batch the file's final (delta-extended)
-  dictionary, the stream reader the dictionary current at that batch: the same
-  values, different ``DictionaryArray`` objects (compare decoded values).
-
-Reading (``read_arrow_file_report``): a file whose footer opens with
-``pa.ipc.open_file`` is complete. Otherwise
-:func:`~turnstamp.files.message_scan.scan_messages` walks the messages after the
-magic and tells a *truncated* tail from *corruption*; pyarrow's stream reader then
-decodes the prefix up to the end of the last complete record batch.
+What we verified with pyarrow (26.0; the tests keep checking it): a stream reader
+opened on a stream cut anywhere hands out every complete batch and then either ends
+(a cut on a message boundary) or raises (``ArrowInvalid`` / ``OSError``: a cut inside
+a message); it never hands out a partial batch, and after each ``read_next_batch``
+the source position is exactly the end of that batch's message, which is where
+recovery cuts a killed file (:mod:`turnstamp.files.recovery`). A file-format file
+without its footer is the same stream after its 8-byte magic.
 """
 
 from __future__ import annotations
@@ -41,15 +28,18 @@ from pathlib import Path
 import pyarrow as pa
 
 from ..errors import ArrowFileError
-from .message_scan import CONTINUATION, HEADER_BYTES, MAGIC, scan_messages
 from .schemas import OUTPUTS
 
 __all__ = [
     "ArrowFileInfo",
+    "END_OF_STREAM",
     "FILE_NAME",
     "PART_NAME",
     "RECOVER_NAME",
+    "StreamScan",
+    "count_batches",
     "list_names",
+    "scan_stream",
     "stream_files",
     "read_arrow_batches",
     "read_arrow_file_report",
@@ -57,13 +47,18 @@ __all__ = [
     "read_stream",
 ]
 
-FILE_NAME = re.compile(r"(?P<stem>.+)-(?P<label>\d{8}T\d{6}Z)-(?P<counter>\d{5,})\.arrow\Z")
-"""Name of a stream's file: ``{stem}-{label}-{counter}.arrow``."""
-PART_NAME = re.compile(r"\.(?P<final>.+\.arrow)\.part\Z")
+FILE_NAME = re.compile(r"(?P<stem>.+)-(?P<label>\d{8}T\d{6}Z)-(?P<counter>\d{5,})\.arrows?\Z")
+"""Name of a stream's file: ``{stem}-{label}-{counter}.arrows`` (``.arrow``: older)."""
+PART_NAME = re.compile(r"\.(?P<final>.+\.arrows?)\.part\Z")
 """Hidden name of a file before its first batch is published."""
-RECOVER_NAME = re.compile(r"\.(?P<final>.+\.arrow)\.[0-9a-f]{32}\.recover\Z")
-"""Hidden name of a file being rewritten by recovery."""
+RECOVER_NAME = re.compile(r"\.(?P<final>.+\.arrows?)\.[0-9a-f]{32}\.recover\Z")
+"""Hidden name of a file being rewritten by the recovery of older versions."""
+END_OF_STREAM = b"\xff\xff\xff\xff\x00\x00\x00\x00"
+"""The IPC end-of-stream marker: the last 8 bytes of a closed stream file."""
+MAGIC = b"ARROW1"
 
+# how pyarrow (26) says that a message runs past the end of the data
+_CUT_SHORT = ("Expected to read", "Expected to be able to read", "bytes available")
 # pyarrow raises these for truncated or undecodable IPC data.
 _READ_ERRORS = (pa.ArrowException, OSError, ValueError, EOFError)
 
@@ -77,7 +72,8 @@ class ArrowFileInfo:
     path : Path
         The file.
     complete : bool
-        The footer is present and valid (the file was closed properly).
+        Closed properly: a stream ending with its end-of-stream marker right after
+        the last batch, or a file-format file with a valid footer.
     batches : int
         Complete record batches read.
     rows : int
@@ -86,19 +82,16 @@ class ArrowFileInfo:
         Size of the file when it was read.
     bytes_ignored : int
         Bytes after the end of the last complete record batch that were not read
-        (a truncated message, a dictionary without its batch, an end-of-stream marker
-        and partial footer, zero fill). 0 for a complete file.
+        (a cut message, a dictionary without its batch). 0 for a complete file.
     tail : str
-        How the data ends: ``footer`` (complete), ``message_boundary`` (cut exactly
-        after a message), ``truncated_message``, ``end_of_stream`` (marker present;
-        in the file format the footer is then missing or partial), ``zero_fill`` or
-        ``corrupt`` (a complete frame that cannot be decoded; data after it is not
-        read).
+        How the data ends: ``end_of_stream`` or ``footer`` (complete),
+        ``message_boundary`` (cut exactly after a message), ``truncated_message``
+        (a message running past the end of the data) or ``corrupt`` (a message that
+        is all there but cannot be read; nothing after it is read).
     detail : str
         Human-readable explanation of the tail.
     format : str
-        ``file`` (our output files) or ``stream`` (IPC stream format, accepted for
-        input files; complete when it ends with the end-of-stream marker).
+        ``stream`` (our output files) or ``file`` (the IPC file format).
     """
 
     path: Path
@@ -109,7 +102,7 @@ class ArrowFileInfo:
     bytes_ignored: int
     tail: str
     detail: str = ""
-    format: str = "file"
+    format: str = "stream"
 
     @property
     def state(self) -> str:
@@ -144,8 +137,8 @@ def stream_files(directory: str | Path, stem: str) -> list[Path]:
     Returns
     -------
     list of Path
-        Complete and partial ``{stem}-{label}-{counter}.arrow`` files; hidden
-        temporaries (``.part``, ``.recover``) are not included.
+        Complete and partial ``{stem}-{label}-{counter}.arrows`` (and ``.arrow``)
+        files; hidden temporaries (``.part``) are not included.
     """
     directory = Path(directory)
     found = []
@@ -159,39 +152,116 @@ def stream_files(directory: str | Path, stem: str) -> list[Path]:
 # --------------------------------------------------------------------------- reading
 
 
-def _open_complete(buffer: pa.Buffer) -> pa.ipc.RecordBatchFileReader | None:
-    if buffer.size < 2 * len(MAGIC) + 4 or buffer[-len(MAGIC):].to_pybytes() != MAGIC:
-        return None
+@dataclasses.dataclass
+class StreamScan:
+    """One IPC stream read up to its last complete batch (``scan_stream``).
+
+    Attributes
+    ----------
+    schema : pyarrow.Schema
+        The stream's schema, metadata included.
+    batches : list of pyarrow.RecordBatch
+        The complete batches (empty with ``keep_batches=False``).
+    ends : list of int
+        File offset just after each complete batch (its dictionaries included).
+    start : int
+        Offset just after the schema message: the cut that keeps no batch.
+    closed : bool
+        The end-of-stream marker follows the last batch and ends the file.
+    size : int
+        Bytes in the file.
+    problem : str
+        Why reading stopped before the end of the data ('' when it did not).
+    magic : bool
+        The stream follows the magic of the IPC file format.
+    """
+
+    schema: pa.Schema
+    batches: list
+    ends: list
+    start: int
+    closed: bool
+    size: int
+    problem: str = ""
+    magic: bool = False
+
+    @property
+    def cut_short(self) -> bool:
+        """Reading stopped at a message that runs past the end of the data (pyarrow
+        says it expected more bytes), not at one that is damaged."""
+        return any(words in self.problem for words in _CUT_SHORT)
+
+
+def _offset(buffer: pa.Buffer, path: Path) -> int:
+    head = buffer[:8].to_pybytes()
+    if head.startswith(MAGIC):
+        return 8
+    if head[:4] == END_OF_STREAM[:4]:
+        return 0
+    if buffer.size < 8:
+        raise ArrowFileError(path, f"only {buffer.size} bytes, no complete header")
+    raise ArrowFileError(path, "not an Arrow IPC file (no 'ARROW1' magic, no stream message)")
+
+
+def scan_stream(path: str | Path, *, keep_batches: bool = True) -> StreamScan:
+    """Read the IPC stream of ``path`` (after the magic of a file-format file) up to
+    its last complete batch, noting where each batch ends.
+
+    Raises
+    ------
+    ArrowFileError
+        Not an Arrow IPC file, or no complete schema message.
+    """
+    path = Path(path)
+    with pa.memory_map(str(path), "r") as source:
+        buffer = source.read_buffer()
+    offset = _offset(buffer, path)
+    reader_source = pa.BufferReader(buffer.slice(offset))
     try:
+        reader = pa.ipc.open_stream(reader_source)
+    except _READ_ERRORS as exc:
+        raise ArrowFileError(path, f"no complete schema message ({exc})") from None
+    scan = StreamScan(reader.schema, [], [], offset + reader_source.tell(), False, buffer.size,
+                      magic=offset == 8)
+    while True:
+        try:
+            batch = reader.read_next_batch()
+        except StopIteration:
+            break
+        except _READ_ERRORS as exc:
+            scan.problem = f"batch {len(scan.ends)} cannot be read: {exc}"
+            break
+        scan.ends.append(offset + reader_source.tell())
+        if keep_batches:
+            scan.batches.append(batch)
+    last = scan.ends[-1] if scan.ends else scan.start
+    scan.closed = (not scan.problem and buffer.size == last + 8
+                   and buffer[last:].to_pybytes() == END_OF_STREAM)
+    return scan
+
+
+def count_batches(path: str | Path) -> int:
+    """Complete record batches in one of our files (0 when it is unreadable)."""
+    try:
+        return len(scan_stream(path, keep_batches=False).ends)
+    except ArrowFileError:
+        return 0
+
+
+def _open_complete(path: Path) -> pa.ipc.RecordBatchFileReader | None:
+    try:
+        with pa.memory_map(str(path), "r") as source:
+            buffer = source.read_buffer()
+        if buffer.size < 12 or buffer[-len(MAGIC):].to_pybytes() != MAGIC:
+            return None
         return pa.ipc.open_file(buffer)
     except _READ_ERRORS:
         return None
 
 
-def _layout(path: Path, buffer: pa.Buffer) -> tuple[int, str]:
-    """Offset of the first message and ``file`` or ``stream``; ArrowFileError otherwise."""
-    size = buffer.size
-    head = buffer[:HEADER_BYTES].to_pybytes()
-    if head.startswith(MAGIC):
-        return HEADER_BYTES, "file"
-    if head[:4] == CONTINUATION:
-        return 0, "stream"
-    if MAGIC.startswith(head[:len(MAGIC)]) and size < HEADER_BYTES:
-        raise ArrowFileError(path, f"only {size} bytes, no complete header")
-    raise ArrowFileError(path, "not an Arrow IPC file (no 'ARROW1' magic, no stream message)")
-
-
-def read_arrow_batches(path: str | Path, *, read_complete: bool = True
-                       ) -> tuple[pa.Schema, list[pa.RecordBatch] | None, ArrowFileInfo]:
+def read_arrow_batches(path: str | Path
+                       ) -> tuple[pa.Schema, list[pa.RecordBatch], ArrowFileInfo]:
     """The schema, the complete batches and what was found, of a complete or partial file.
-
-    Parameters
-    ----------
-    path : str or Path
-        The file.
-    read_complete : bool
-        False: for a complete file, check the footer only and return None as the
-        batches (``info.rows`` is then -1).
 
     Raises
     ------
@@ -199,74 +269,35 @@ def read_arrow_batches(path: str | Path, *, read_complete: bool = True
         The file is not an Arrow IPC file or lacks a complete schema message.
     """
     path = Path(path)
-    with pa.memory_map(str(path), "r") as source:
-        buffer = source.read_buffer()
-    start, kind = _layout(path, buffer)
-    reader = _open_complete(buffer) if kind == "file" else None
-    if reader is None:
-        return _read_partial(path, buffer, start, kind)
-    batches = None
-    if read_complete:
+    reader = _open_complete(path)
+    if reader is not None:
         batches = [reader.get_batch(i) for i in range(reader.num_record_batches)]
-    rows = sum(b.num_rows for b in batches) if batches is not None else -1
-    info = ArrowFileInfo(path, True, reader.num_record_batches, rows, buffer.size, 0, "footer",
-                         "footer present and valid")
-    return reader.schema, batches, info
-
-
-def _read_partial(path: Path, buffer: pa.Buffer, start: int, kind: str
-                  ) -> tuple[pa.Schema, list[pa.RecordBatch], ArrowFileInfo]:
-    """A file without a valid footer (or a stream): decoded up to its last complete batch."""
-    size = buffer.size
-    messages, tail, detail = scan_messages(buffer, start)
-    if not messages or messages[0][0] != "schema":
-        raise ArrowFileError(path, f"no complete schema message ({detail})")
-    batch_ends = [end for what, _, end in messages if what == "record_batch"]
-    cut = batch_ends[-1] if batch_ends else messages[0][2]
-    source = pa.BufferReader(buffer.slice(start, cut - start))
-    try:
-        stream = pa.ipc.open_stream(source)
-    except _READ_ERRORS as exc:
-        raise ArrowFileError(path, f"schema message cannot be decoded: {exc}") from None
-    batches, used, problem = _decode_batches(stream, source, start, messages[0][2])
-    if problem:
-        tail, detail = "corrupt", problem
-    elif len(batches) != len(batch_ends):
-        tail, detail = "corrupt", (f"{len(batch_ends)} complete record-batch frames but only "
-                                   f"{len(batches)} decoded")
-    rows = sum(b.num_rows for b in batches)
-    complete = kind == "stream" and tail == "end_of_stream"
-    if complete:
-        detail, used = "IPC stream format, ends with its end-of-stream marker", size
-    info = ArrowFileInfo(path, complete, len(batches), rows, size, size - used, tail, detail,
-                         kind)
-    return stream.schema, batches, info
-
-
-def _decode_batches(stream: pa.ipc.RecordBatchStreamReader, source: pa.BufferReader,
-                    start: int, used: int) -> tuple[list[pa.RecordBatch], int, str]:
-    """Every batch the stream reader decodes, the file offset after the last one, and
-    what stopped it when that is not the end of the data ('' then)."""
-    batches: list[pa.RecordBatch] = []
-    while True:
-        try:
-            batch = stream.read_next_batch()
-        except StopIteration:
-            return batches, used, ""
-        except _READ_ERRORS as exc:
-            return batches, used, f"batch {len(batches)} cannot be decoded: {exc}"
-        batches.append(batch)
-        used = start + source.tell()
+        info = ArrowFileInfo(path, True, len(batches), sum(b.num_rows for b in batches),
+                             path.stat().st_size, 0, "footer", "footer present and valid", "file")
+        return reader.schema, batches, info
+    scan = scan_stream(path)
+    used = scan.ends[-1] if scan.ends else scan.start
+    kind = "file" if scan.magic else "stream"
+    if scan.closed:
+        tail, detail, used = "end_of_stream", "ends with its end-of-stream marker", scan.size
+    elif scan.problem:
+        tail, detail = ("truncated_message" if scan.cut_short else "corrupt"), scan.problem
+    else:
+        tail, detail = "message_boundary", "data ends after a complete message"
+    complete = scan.closed and kind == "stream"
+    info = ArrowFileInfo(path, complete, len(scan.batches),
+                         sum(b.num_rows for b in scan.batches), scan.size, scan.size - used,
+                         tail, detail, kind)
+    return scan.schema, scan.batches, info
 
 
 def read_arrow_file_report(path: str | Path) -> tuple[pa.Table, ArrowFileInfo]:
     """Read an output file, complete or cut short, and say what was found.
 
-    A file with a valid footer is read with ``pa.ipc.open_file``. Otherwise the
-    IPC stream after the 8-byte magic is read up to the end of the last complete
-    record batch; a truncated final batch (or any other incomplete tail) is left
-    out and accounted for in ``info.bytes_ignored``. Input in the IPC stream format
-    (no magic) is read the same way from its first byte.
+    A stream file (ours) is read up to the end of its last complete record batch;
+    a truncated final batch is left out and accounted for in ``info.bytes_ignored``.
+    A file-format file with a valid footer is read with ``pa.ipc.open_file``, one
+    without it as the stream after its 8-byte magic.
 
     Parameters
     ----------

@@ -1,54 +1,56 @@
-"""Finishing footer-less output files at start-up, and cleaning leftover temporaries.
+"""Ending killed output files at start-up by truncation, and cleaning leftover temporaries.
 
 Theory of operation
 -------------------
-A killed writer leaves its open file without the footer of the IPC file format
-(see :mod:`turnstamp.files.writer`). :func:`recover_partial_files` rewrites every
-such file as a complete file with the same schema, metadata and complete batches:
-temporary name in the same directory, fsync, verification, atomic ``os.replace``,
-directory fsync. It leaves alone files whose tail is corrupt rather than cut short
-(a human should look) and files a live writer holds locked, and removes ``.part``
-files whose first batch was never published (their ``write`` had not returned).
-It is idempotent.
+A killed writer leaves its open file without the end-of-stream marker, perhaps with
+part of a message after its last complete batch (see :mod:`turnstamp.files.writer`).
+:func:`finish_file` cuts such a file just after its last complete batch (or after an
+earlier batch, when the caller keeps fewer: the rows of a message that was never
+committed), appends the end-of-stream marker and fsyncs: the bytes before the cut
+are never touched. A *closed* file (ending with its marker) is never rewritten, and
+a file a live writer holds locked is skipped. :func:`clean_leftovers` removes the
+hidden temporaries of interrupted steps: ``.part`` files whose first batch was never
+published, and the ``.tmp`` files of an interrupted atomic write (a checkpoint, the
+status). Both are idempotent, so a start-up that is itself killed is simply redone.
 """
 
 from __future__ import annotations
 
 import contextlib
 import dataclasses
-import datetime as dt
 import os
-import uuid
+import re
 from pathlib import Path
 
-import pyarrow as pa
-
 from ..errors import ArrowFileError
-from .conform import WRITE_OPTIONS, DictionaryUnifier
 from .durable import fsync_directory, try_lock
-from .reader import FILE_NAME, PART_NAME, RECOVER_NAME, list_names, read_arrow_batches
+from .reader import END_OF_STREAM, FILE_NAME, PART_NAME, RECOVER_NAME, list_names, scan_stream
 
-__all__ = ["RecoveryReport", "recover_partial_files", "recover_file"]
+__all__ = ["RecoveryReport", "recover_partial_files", "finish_file", "clean_leftovers"]
+
+TEMP_NAME = re.compile(r"\..+\.[0-9a-f]{32}\.tmp\Z")
+"""Hidden name of a file being written atomically (``durable.atomic_write_bytes``)."""
 
 
 @dataclasses.dataclass(frozen=True)
 class RecoveryReport:
-    """What ``recover_partial_files`` did with one file.
+    """What recovery did with one file.
 
     Attributes
     ----------
     path : Path
         The file concerned (for leftovers, the leftover itself).
     action : str
-        ``rewritten`` (footer-less file made complete), ``removed`` (a leftover
-        temporary file holding no published data), ``in_use`` (locked by a live
-        writer, not touched) or ``left_alone`` (corrupt or ambiguous, not touched).
+        ``ended`` (cut after its last kept batch, end-of-stream marker appended),
+        ``removed`` (a leftover temporary file holding no published data),
+        ``in_use`` (locked by a live writer, not touched) or ``left_alone``
+        (closed, unreadable or of the file format: not touched).
     batches_kept : int
         Complete record batches in the file after recovery.
     rows_kept : int
-        Rows in those batches.
+        Rows in those batches (-1 when not counted).
     bytes_dropped : int
-        Bytes of the original that are not represented in the result.
+        Bytes cut from the end of the file.
     detail : str
         Explanation.
     """
@@ -62,118 +64,88 @@ class RecoveryReport:
 
 
 def recover_partial_files(directory: str | Path) -> list[RecoveryReport]:
-    """Make every footer-less output file in ``directory`` complete (run at start-up).
-
-    For every ``{stem}-{label}-{counter}.arrow`` file without a valid footer, the
-    complete batches and the schema metadata (plus ``turnstamp.recovered``) are
-    written to a temporary file in the same directory, fsynced, verified and moved
-    over the original with ``os.replace``. Files whose tail is corrupt rather than
-    cut short, and files locked by a live writer, are left untouched. Leftover
-    temporaries are removed: ``.{name}.recover`` (an interrupted recovery, the
-    original is still there) and ``.{name}.part`` (a file whose first batch was
-    never published because its ``write`` did not return). Idempotent; run it
-    before opening writers on the directory.
-
-    Parameters
-    ----------
-    directory : str or Path
-        Output directory (missing: nothing to do).
+    """End every killed output file in ``directory`` after its last complete batch and
+    remove leftover temporaries (run at start-up, before writers open).
 
     Returns
     -------
     list of RecoveryReport
-        One entry per file acted on or left alone; empty when everything is complete.
+        One entry per file acted on or left alone; empty when everything is closed.
     """
     directory = Path(directory)
-    reports: list[RecoveryReport] = []
+    reports = clean_leftovers(directory)
     for name in list_names(directory):
-        path = directory / name
-        leftover = RECOVER_NAME.match(name)
-        if leftover:
-            if (directory / leftover.group("final")).exists():
-                size = _size(path)
-                with contextlib.suppress(FileNotFoundError):
-                    path.unlink()
-                reports.append(RecoveryReport(path, "removed", 0, 0, size,
-                                              "temporary file of an interrupted recovery"))
-            else:
-                reports.append(RecoveryReport(path, "left_alone", 0, 0, 0,
-                                              "recovery temporary without its original"))
-            continue
-        part = PART_NAME.match(name)
-        if part:
-            reports.append(_remove_unpublished(path, directory / part.group("final")))
-            continue
-        if FILE_NAME.match(name) and path.is_file():
-            report = recover_file(path)
+        if FILE_NAME.match(name) and (directory / name).is_file():
+            report = finish_file(directory / name)
             if report is not None:
                 reports.append(report)
     return reports
 
 
-def recover_file(path: Path) -> RecoveryReport | None:
-    """Give one footer-less output file a footer; None if it is already complete.
+def finish_file(path: Path, keep_batches: int | None = None) -> RecoveryReport | None:
+    """Cut a killed stream file after its last complete batch (or its first
+    ``keep_batches`` batches) and close it with the end-of-stream marker.
 
     Parameters
     ----------
     path : Path
-        A ``{stem}-{label}-{counter}.arrow`` file.
+        A ``{stem}-{label}-{counter}.arrows`` file.
+    keep_batches : int, optional
+        Batches to keep (all complete ones by default).
 
     Returns
     -------
     RecoveryReport or None
-        What was done (``rewritten``, ``in_use``, ``left_alone``).
+        None when the file is closed and keeps every batch asked for.
     """
-    with open(path, "rb") as guard:
-        if not try_lock(guard.fileno()):
-            return RecoveryReport(path, "in_use", 0, 0, 0, "locked by a live writer")
+    if keep_batches is None and _ends_closed(path):
+        return None
+    with open(path, "r+b") as handle:
+        if not try_lock(handle.fileno()):
+            return RecoveryReport(path, "in_use", 0, -1, 0, "locked by a live writer")
         try:
-            schema, batches, info = read_arrow_batches(path, read_complete=False)
+            scan = scan_stream(path, keep_batches=False)
         except ArrowFileError as exc:
-            return RecoveryReport(path, "left_alone", 0, 0, 0, str(exc))
-        if info.complete:
-            return None
-        if info.format != "file":
-            return RecoveryReport(path, "left_alone", info.batches, info.rows, 0,
-                                  "IPC stream format, not written by this module")
-        if info.tail == "corrupt":
-            return RecoveryReport(path, "left_alone", info.batches, info.rows, 0,
-                                  f"not a truncation, needs a human: {info.detail}")
-        metadata = dict(schema.metadata or {})
-        metadata[b"turnstamp.recovered"] = (
-            f"batches_kept={info.batches} bytes_dropped={info.bytes_ignored} "
-            f"tail={info.tail} at={dt.datetime.now(dt.UTC):%Y-%m-%dT%H:%M:%SZ}"
-        ).encode()
-        _write_complete(batches, schema.with_metadata(metadata), path)
-        return RecoveryReport(path, "rewritten", info.batches, info.rows, info.bytes_ignored,
-                              info.detail)
+            return RecoveryReport(path, "left_alone", 0, -1, 0, str(exc))
+        have = len(scan.ends)
+        keep = have if keep_batches is None else min(keep_batches, have)
+        if scan.closed or scan.magic:
+            if keep == have:
+                return None
+            why = "closed" if scan.closed else "of the IPC file format"
+            return RecoveryReport(path, "left_alone", have, -1, 0,
+                                  f"{why}: its last {have - keep} batches hold rows never "
+                                  "committed, but such a file is never rewritten")
+        if scan.problem and not scan.cut_short and keep == have:
+            return RecoveryReport(path, "left_alone", have, -1, 0,
+                                  f"damaged, not cut short: needs a human ({scan.problem})")
+        cut = scan.ends[keep - 1] if keep else scan.start
+        handle.truncate(cut)
+        handle.seek(cut)
+        handle.write(END_OF_STREAM)
+        handle.flush()
+        os.fsync(handle.fileno())
+    fsync_directory(path.parent)
+    detail = (f"{have - keep} uncommitted batches cut" if keep < have
+              else scan.problem or "end-of-stream marker added")
+    return RecoveryReport(path, "ended", keep, -1, scan.size - cut, detail)
 
 
-def _write_complete(batches: list[pa.RecordBatch], schema: pa.Schema, target: Path) -> None:
-    """Write a complete file next to ``target``, verify it, then replace ``target``."""
-    temp = target.parent / f".{target.name}.{uuid.uuid4().hex}.recover"
-    try:
-        with open(temp, "xb") as handle:
-            writer = pa.ipc.new_file(handle, schema, options=WRITE_OPTIONS)
-            unifier = DictionaryUnifier(schema)
-            for batch in batches:
-                writer.write_batch(unifier.apply(batch))
-            writer.close()
-            handle.flush()
-            os.fsync(handle.fileno())
-        with pa.memory_map(str(temp), "r") as source:
-            check = pa.ipc.open_file(source)
-            rows = sum(check.get_batch(i).num_rows for i in range(check.num_record_batches))
-        expected = sum(b.num_rows for b in batches)
-        if check.num_record_batches != len(batches) or rows != expected:
-            raise RuntimeError(f"{temp}: rewritten file holds {check.num_record_batches} "
-                               f"batches / {rows} rows instead of {len(batches)} / {expected}")
-        os.replace(temp, target)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            temp.unlink()
-        raise
-    fsync_directory(target.parent)
+def clean_leftovers(directory: Path) -> list[RecoveryReport]:
+    """Remove hidden temporaries of interrupted steps (``.part``, ``.tmp``, ``.recover``)."""
+    reports = []
+    for name in list_names(directory):
+        path = directory / name
+        part = PART_NAME.match(name)
+        if part:
+            reports.append(_remove_unpublished(path, directory / part.group("final")))
+        elif TEMP_NAME.match(name) or RECOVER_NAME.match(name):
+            size = _size(path)
+            with contextlib.suppress(FileNotFoundError):
+                path.unlink()
+            reports.append(RecoveryReport(path, "removed", 0, 0, size,
+                                          "temporary file of an interrupted write"))
+    return reports
 
 
 def _remove_unpublished(path: Path, final: Path) -> RecoveryReport:
@@ -192,6 +164,16 @@ def _remove_unpublished(path: Path, final: Path) -> RecoveryReport:
         path.unlink()
     fsync_directory(path.parent)
     return RecoveryReport(path, "removed", 0, 0, size, detail)
+
+
+def _ends_closed(path: Path) -> bool:
+    """The file ends with the end-of-stream marker (read: its last 8 bytes only)."""
+    try:
+        with open(path, "rb") as handle:
+            handle.seek(-len(END_OF_STREAM), os.SEEK_END)
+            return handle.read() == END_OF_STREAM
+    except OSError:
+        return False
 
 
 def _size(path: Path) -> int:

@@ -1,29 +1,31 @@
-"""Output files that survive ``kill -9``: one stream as rotating Arrow IPC files.
+"""Output files that survive ``kill -9``: one stream as rotating Arrow IPC stream files.
 
 Theory of operation
 -------------------
 Every output stream (``archive``, ``significance``, ...) is a sequence of Arrow IPC
-*file format* files ``{stem}-{UTC start YYYYmmddTHHMMSSZ}-{counter:05d}.arrow``
-(layout in :mod:`turnstamp.files.message_scan`). pyarrow's file writer writes nothing
-until the first batch, then the magic, schema and dictionaries with it; ``close``
-writes the end-of-stream marker, the footer and the trailing magic. Batches are
-fitted to the schema and their dictionaries grow by deltas
-(:mod:`turnstamp.files.conform`).
+*stream format* files ``{stem}-{UTC start YYYYmmddTHHMMSSZ}-{counter:05d}.arrows``:
+the schema message, then dictionary and record-batch messages, and, once the file is
+closed, the 8-byte end-of-stream marker. The stream format allows a dictionary to be
+replaced between batches, so batches are written as they come (fitted to the schema
+by :mod:`turnstamp.files.conform`), and a stream cut anywhere reads back to its last
+complete batch (:mod:`turnstamp.files.reader`).
 
 Durability rules of ``RotatingArrowWriter``:
 
-* A file becomes visible under its final name only once its header and first batch
+* A file becomes visible under its final name only once its schema and first batch
   are on disk: they are written to a hidden ``.{name}.part``, flushed, fsynced and
-  then hard-linked (or renamed) to the final name. Every ``*.arrow`` file therefore
-  holds a complete schema and at least one complete batch.
+  then hard-linked (or renamed) to the final name.
 * After each further batch the file object is flushed, so the bytes are in the OS
   cache and a killed process loses at most the batch it was writing
   (``fsync_each_batch=True`` also protects against power loss, at a cost).
-* Rotation and ``close`` write the footer, flush and fsync.
+* Rotation and ``close`` write the end-of-stream marker, flush and fsync. A file
+  with its end-of-stream marker is *closed*: nothing ever writes to it again,
+  recovery included.
 * The writer holds an exclusive ``flock`` on its open file; recovery
-  (:mod:`turnstamp.files.recovery`) skips locked files, so it cannot rewrite a file a
-  live writer is appending to. A write that fails cuts the file back to its last
-  complete batch and gives it a footer at once.
+  (:mod:`turnstamp.files.recovery`) skips locked files. A write that fails cuts the
+  file back to its last complete batch and closes it at once.
+* ``rotate_on_write=False`` leaves rotation to ``check_rotation`` (the service calls
+  it between messages, so that one message's rows never straddle a closed file).
 """
 
 from __future__ import annotations
@@ -41,10 +43,9 @@ from typing import Any, NamedTuple
 
 import pyarrow as pa
 
-from .conform import WRITE_OPTIONS, DictionaryUnifier, checked_metadata, conform_batch, row_count
+from .conform import checked_metadata, conform_batch, row_count
 from .durable import fsync_directory, publish, try_lock
-from .reader import FILE_NAME, PART_NAME, list_names, stream_files
-from .recovery import recover_file
+from .reader import END_OF_STREAM, FILE_NAME, PART_NAME, count_batches, list_names, stream_files
 
 __all__ = ["RotatingArrowWriter", "SinkPosition"]
 
@@ -71,8 +72,7 @@ class SinkPosition(NamedTuple):
 class _OpenFile:
     path: Path
     handle: Any  # binary file object
-    writer: pa.ipc.RecordBatchFileWriter
-    unifier: DictionaryUnifier
+    writer: pa.ipc.RecordBatchStreamWriter
     opened_at: float
     batches: int = 0
     good_bytes: int = 0  # file size after the last complete batch
@@ -108,6 +108,9 @@ class RotatingArrowWriter:
     fsync_each_batch : bool, optional
         Also fsync after every batch (survives power loss, not only a killed
         process). Default False: flush only.
+    rotate_on_write : bool, optional
+        Check rotation before every write (default). False: only ``check_rotation``
+        and ``rotate`` close a file.
 
     Notes
     -----
@@ -129,6 +132,7 @@ class RotatingArrowWriter:
         metadata: Mapping[str, str] | None = None,
         clock: Callable[[], float] = time.time,
         fsync_each_batch: bool = False,
+        rotate_on_write: bool = True,
     ):
         if not _STEM.match(stem):
             raise ValueError(f"stem = {stem!r}: use letters, digits, '_', '.', '-' "
@@ -146,19 +150,21 @@ class RotatingArrowWriter:
         self.rotate_seconds = rotate_seconds
         self.rotate_bytes = rotate_bytes
         self.fsync_each_batch = fsync_each_batch
+        self.rotate_on_write = rotate_on_write
         self._clock = clock
         self._metadata = checked_metadata(metadata)
         self._lock = threading.RLock()
         self._open: _OpenFile | None = None
         self._closed = False
-        self._position = SinkPosition(None, 0)
         self._next_counter, self._last_label = self._scan_existing()
+        self._position = self._end_of_existing()
 
     # ----------------------------------------------------------------- public API
 
     @property
     def position(self) -> SinkPosition:
-        """``(file_name, batches_in_file)`` after the last write."""
+        """``(file_name, batches_in_file)`` after the last write; before the first,
+        the end of the stream's last file already in the directory."""
         with self._lock:
             return self._position
 
@@ -214,7 +220,7 @@ class RotatingArrowWriter:
             if self._closed:
                 raise RuntimeError(f"{self.stem}: write() after close()")
             state = self._open
-            if state is not None and self._rotation_due(state):
+            if state is not None and self.rotate_on_write and self._rotation_due(state):
                 self._close_current()
                 state = None
             if state is None:
@@ -239,7 +245,8 @@ class RotatingArrowWriter:
             return False
 
     def rotate(self) -> Path | None:
-        """Close the open file (footer, fsync); the next write opens a new one.
+        """Close the open file (end-of-stream marker, fsync); the next write opens a
+        new one.
 
         Returns
         -------
@@ -259,6 +266,18 @@ class RotatingArrowWriter:
                     self._close_current()
             finally:
                 self._closed = True
+
+    def release(self) -> None:
+        """Let go of the open file without ending it, as a killed process would; further
+        writes raise. Start-up recovery then cuts what was never committed (a file
+        ended here could no longer be cut: a closed file is never rewritten)."""
+        with self._lock:
+            state, self._open = self._open, None
+            self._closed = True
+            if state is not None:
+                with contextlib.suppress(Exception):
+                    state.handle.flush()
+                state.handle.close()
 
     def files(self) -> list[Path]:
         """This stream's files in the directory, in write order (open file last)."""
@@ -286,6 +305,12 @@ class RotatingArrowWriter:
                 label = max(label, match.group("label"))
         return counter + 1, label
 
+    def _end_of_existing(self) -> SinkPosition:
+        files = stream_files(self.directory, self.stem)
+        if not files:
+            return SinkPosition(None, 0)
+        return SinkPosition(files[-1].name, count_batches(files[-1]))
+
     def _rotation_due(self, state: _OpenFile) -> bool:
         if self.rotate_bytes is not None and state.good_bytes >= self.rotate_bytes:
             return True
@@ -299,7 +324,7 @@ class RotatingArrowWriter:
         label = max(opened.strftime("%Y%m%dT%H%M%SZ"), self._last_label)
         counter = self._next_counter
         while True:
-            name = f"{self.stem}-{label}-{counter:05d}.arrow"
+            name = f"{self.stem}-{label}-{counter:05d}.arrows"
             final = self.directory / name
             temp = self.directory / f".{name}.part"
             if not (final.exists() or temp.exists()):
@@ -316,9 +341,8 @@ class RotatingArrowWriter:
         handle = open(temp, "xb")  # noqa: SIM115 - lives as long as the file is open
         try:
             try_lock(handle.fileno())
-            writer = pa.ipc.new_file(handle, schema, options=WRITE_OPTIONS)
-            unifier = DictionaryUnifier(schema)
-            writer.write_batch(unifier.apply(batch))
+            writer = pa.ipc.new_stream(handle, schema)
+            writer.write_batch(batch)
             handle.flush()
             os.fsync(handle.fileno())
             publish(temp, final)
@@ -329,11 +353,10 @@ class RotatingArrowWriter:
             raise
         fsync_directory(self.directory)
         self._next_counter, self._last_label = counter + 1, label
-        self._open = _OpenFile(final, handle, writer, unifier, now, 1, handle.tell())
+        self._open = _OpenFile(final, handle, writer, now, 1, handle.tell())
         return self._open
 
     def _append(self, state: _OpenFile, batch: pa.RecordBatch) -> None:
-        batch = state.unifier.apply(batch)  # touches no file
         try:
             state.writer.write_batch(batch)
             state.handle.flush()
@@ -360,14 +383,16 @@ class RotatingArrowWriter:
 
     def _abandon(self, state: _OpenFile) -> None:
         """After a failed write or close: cut the file back to its last complete batch,
-        release it and try to give it a footer at once (else start-up recovery will)."""
+        end it and release it."""
         if self._open is state:
             self._open = None
         with contextlib.suppress(Exception):
             state.handle.flush()
         with contextlib.suppress(Exception):
             state.handle.truncate(state.good_bytes)
+            state.handle.seek(state.good_bytes)
+            state.handle.write(END_OF_STREAM)
+            state.handle.flush()
+            os.fsync(state.handle.fileno())
         with contextlib.suppress(Exception):
             state.handle.close()
-        with contextlib.suppress(Exception):
-            recover_file(state.path)

@@ -3,8 +3,8 @@
 ``loop``        the ``Service`` object and its receive -> decode -> feed -> write loop
 ``sockets``     intake, control and publish sockets; addresses checked first
 ``intake``      draining, decoding and sequence checks of each message
-``checkpoint``  the state between two messages, in ``checkpoint.json``
-``recovery``    resuming after a crash: replay after the checkpoint, drop the uncommitted
+``checkpoint``  the state between two messages, in ``checkpoint.arrow`` (its own thread)
+``recovery``    resuming after a crash: replay in lockstep with the ledger, cut the uncommitted
 ``control``     the control commands (a ROUTER socket: any client, any frames)
 ``lifecycle``   banner, summary, and the "failed" status when the service fails
 ``status``      the status document: ``status.json`` and the PUB updates

@@ -4,7 +4,8 @@ At start a banner names every endpoint as bound, the output folder, the targets
 and their models; at stop a summary gives the counts. A service that fails (at
 start-up or while running) says so in ``status.json`` ("failed", with the error),
 and closes every output file first, so that nothing claims "running" for a dead
-process and no file is left without its footer.
+process (a failure in the middle of a message's rows leaves the archive, rejects and
+ledger files open instead: the next start cuts that message's rows).
 """
 
 from __future__ import annotations
@@ -57,9 +58,13 @@ def summary(service: Service) -> str:
 def failed(service: Service, error: BaseException) -> None:
     """Close every file and write a "failed" status; never raises (the error that
     brought us here is what the caller re-raises)."""
-    for writer in service.writers.values():
+    mid_message = service.ledger.in_commit
+    for stem, writer in service.writers.items():
         try:
-            writer.close()
+            if mid_message and stem in ("archive", "rejects", "ledger"):
+                writer.release()
+            else:
+                writer.close()
         except Exception:  # closing the others matters more
             log.exception("closing %s after a failure", writer)
     try:

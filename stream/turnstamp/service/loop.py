@@ -42,7 +42,7 @@ from ..files.durable import atomic_write_text
 from ..files.ledger import Ledger
 from ..files.outputs import archive_tables, clock_table, rejects_table, rows_table
 from . import control
-from .checkpoint import checkpoint_state, write_checkpoint
+from .checkpoint import Checkpointer, checkpoint_state
 from .intake import Admission, Admitted, Refused, drain
 from .lifecycle import banner, failed, failed_at_start, summary
 from .recovery import resume
@@ -96,6 +96,7 @@ class Service:
         self._note(notes)
         self.admission = Admission(config.intake, tracker)
         self.writers = open_writers(self.out, config, self._metadata(), clock)
+        self.checkpointer = Checkpointer(self.out)
         self.ledger = Ledger(self.writers["archive"], self.writers["rejects"],
                              self.writers["ledger"], self.counters)
         self.activity = Activity()
@@ -112,7 +113,8 @@ class Service:
             ("update", config.statistics.update_every_s, self._update),
             ("clock", config.clock_check.every_s, self._clock_check),
             ("status", STATUS_EVERY_S, self._status_and_rotation),
-            ("checkpoint", config.output.checkpoint_every_s, lambda now: self.checkpoint()),
+            ("checkpoint", config.output.checkpoint_every_s,
+             lambda now: self.checkpoint(wait=False)),
             ("reload", RELOAD_CHECK_S, self._upkeep),
             ("collect", COLLECT_EVERY_S, lambda now: gc.collect()),  # frees per-message cycles
         )
@@ -210,10 +212,13 @@ class Service:
         self.reload()
         self.upkeep.extend_tables()
 
-    def checkpoint(self) -> None:
-        """Write a checkpoint of the state between two messages (``checkpoint``)."""
-        write_checkpoint(self.out, checkpoint_state(self.pipeline, self.admission.tracker,
-                                                    self.counters, self.writers))
+    def checkpoint(self, wait: bool = True) -> None:
+        """Checkpoint the state between two messages (``checkpoint``): the snapshot
+        now, the file on the checkpoint thread (``wait``: before returning)."""
+        self.checkpointer.submit(checkpoint_state(self.pipeline, self.admission.tracker,
+                                                  self.counters, self.writers))
+        if wait:
+            self.checkpointer.wait()
 
     def reload(self, force: bool = False) -> list[str]:
         """Reload models and templates whose files changed (all, with ``force``);
@@ -254,6 +259,7 @@ class Service:
         self._update(now)
         self._clock_check(now)
         self.checkpoint()
+        self.checkpointer.close()
         for writer in self.writers.values():
             writer.close()
         self._write_status("stopped")

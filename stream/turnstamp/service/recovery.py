@@ -1,35 +1,36 @@
-"""Checkpoints, and resuming after a crash without losing or double-counting events.
+"""Resuming after a crash without losing or double-counting events.
 
 Theory of operation
 -------------------
 For every message the service writes, in this order: its archive rows (one Arrow
-batch per target), its rejects rows, then one ledger row. The ledger row is the
-commit mark: it carries the message's accounting (events, tagged, filtered,
-rejected). A checkpoint, written atomically between messages, holds the pipeline's
-statistics, the sequence tracker, the counters and each stream's position
-(file, batches written).
+batch per target), its rejects rows, then one ledger row (``files.ledger``). The
+ledger row is the commit mark. A checkpoint, taken between two messages, holds the
+statistics, the sequence tracker, the counters and each stream's position (file,
+batches written); the positions never lie behind what the state has counted.
 
 Resuming (``resume``):
 
-1. finish any footer-less file (``files.recovery.recover_partial_files``);
-2. restore the checkpoint (``checkpoint``);
-3. replay the ledger rows written after it into the counters and the sequence
-   tracker, the rejects rows of those messages into the counts by reason, and
-   their archive rows into the statistics;
-4. drop archive and rejects batches of a message that has no ledger row: the
-   message in flight when the process died. That, and only that, is lost.
+1. remove leftover temporaries (``files.recovery.clean_leftovers``);
+2. restore the checkpoint (none: an empty state and positions before every file);
+3. read every stream after its position, up to its last complete batch;
+4. walk the ledger rows in lockstep with the archive and rejects batches: each
+   message's batches come, in order, just before its ledger row, so a row claims the
+   batches of its (source, sequence) that follow those already claimed (a refused
+   message: exactly one rejects batch). Replay the ledger rows into the counters and
+   the tracker, the claimed rejects batches into the counts by reason, the claimed
+   archive batches into the statistics;
+5. cut what no ledger row claims (the message in flight at the kill, always the end
+   of the stream's last file) and end every killed file with its end-of-stream
+   marker (``files.recovery.finish_file``). A closed file is never rewritten.
 
-The commit order and how its rows are counted live in ``ledger``; this module
-only reads the files back in that light.
-
-Counters therefore reconcile exactly after a ``kill -9``, and the statistics equal
-those of an uninterrupted run over the messages that were committed.
+Nothing of this writes anything but the cut of step 5, which keeps every committed
+batch; a start-up killed at any point is therefore redone identically from the same
+checkpoint, however often the process dies.
 """
 
 from __future__ import annotations
 
 import logging
-import os
 from pathlib import Path
 from typing import NamedTuple
 
@@ -38,62 +39,68 @@ import pyarrow as pa
 from ..core.accounting import ACCEPTED, Counters, MessageRecord
 from ..core.pipeline import Pipeline
 from ..files.ledger import count_rejects, message_keys
-from ..files.reader import read_arrow_file, stream_files
-from ..files.recovery import recover_partial_files
+from ..files.reader import FILE_NAME, read_arrow_file, stream_files
+from ..files.recovery import clean_leftovers, finish_file
+from ..files.schemas import OUTPUTS
 from ..wire.sequence import SequenceTracker
 from .checkpoint import read_checkpoint
 
-__all__ = ["tail_batches", "drop_uncommitted", "Resumed", "resume"]
+__all__ = ["tail_batches", "claimed", "Resumed", "resume"]
 
 log = logging.getLogger(__name__)
 
 Key = tuple[str | None, int | None]
 """A message: (source, sequence); (None, None) when its header was unreadable."""
+Entry = tuple[Path, int, pa.RecordBatch]
+"""One batch of a stream: (file, index in the file, batch)."""
 
 
-def tail_batches(directory: Path, stem: str, position) -> list[tuple[Path, int, pa.RecordBatch]]:
+def _counter(name: str) -> int:
+    match = FILE_NAME.match(name)
+    return int(match.group("counter")) if match else -1
+
+
+def tail_batches(directory: Path, stem: str, position) -> list[Entry]:
     """Record batches of a stream written after ``position`` = [file name, batches]
-    (everything when ``position`` is None), as (file, index in file, batch)."""
+    (everything when ``position`` is None or names no file)."""
     out = []
-    started = position is None or not position[0]
+    after = -1 if not position or not position[0] else _counter(position[0])
     for path in stream_files(directory, stem):
-        skip = 0
-        if not started:
-            if path.name != position[0]:
-                continue
-            started, skip = True, int(position[1])
-        table = read_arrow_file(path)
-        for index, batch in enumerate(table.to_batches()):
+        counter = _counter(path.name)
+        if counter < after:
+            continue
+        skip = int(position[1]) if counter == after else 0
+        for index, batch in enumerate(read_arrow_file(path).to_batches()):
             if index >= skip:
                 out.append((path, index, batch))
     return out
 
 
-def drop_uncommitted(directory: Path, stem: str, position, committed: set[Key]) -> int:
-    """Remove batches after ``position`` whose (source, sequence) has no ledger row.
+def _key(batch: pa.RecordBatch) -> Key:
+    keys = message_keys(batch)
+    return next(iter(keys)) if len(keys) == 1 else (None, -1)
 
-    Only the tail of the last file(s) can hold such batches; files are rewritten
-    through a temporary file and an atomic rename. Returns rows dropped.
-    """
-    dropped = 0
-    by_file: dict[Path, list[int]] = {}
-    for path, index, batch in tail_batches(directory, stem, position):
-        keys = message_keys(batch)
-        if keys and not keys <= committed:
-            by_file.setdefault(path, []).append(index)
-            dropped += batch.num_rows
-    for path, indices in by_file.items():
-        table = read_arrow_file(path)
-        keep = [b for i, b in enumerate(table.to_batches()) if i not in set(indices)]
-        temporary = path.with_name(f".{path.name}.rewrite")
-        with pa.OSFile(str(temporary), "wb") as sink, \
-                pa.ipc.new_file(sink, table.schema) as writer:
-            for batch in keep:
-                writer.write_batch(batch)
-        os.replace(temporary, path)
-        log.warning("dropped %d uncommitted rows from %s (message in flight at a crash)",
-                    sum(table.to_batches()[i].num_rows for i in indices), path.name)
-    return dropped
+
+def claimed(records: list[MessageRecord], archive: list[Key], rejects: list[Key],
+            rejects_events: list[int]) -> tuple[int, int]:
+    """How many archive and rejects batches (from the start of each tail) the ledger
+    rows ``records`` commit, walked in lockstep. A refused message has one rejects
+    batch; an accepted one, batches of its key holding at most the events it
+    rejected (gap notes hold none), so a refused repeat of it that follows, in flight,
+    is not taken for its own."""
+    a = r = 0
+    for record in records:
+        key = (record.source, record.sequence)
+        if record.outcome == ACCEPTED:
+            while a < len(archive) and archive[a] == key:
+                a += 1
+            budget = record.rejected
+            while r < len(rejects) and rejects[r] == key and rejects_events[r] <= budget:
+                budget -= rejects_events[r]
+                r += 1
+        elif r < len(rejects) and rejects[r] == key:
+            r += 1
+    return a, r
 
 
 class Resumed(NamedTuple):
@@ -109,8 +116,7 @@ def resume(directory: Path, pipeline: Pipeline) -> Resumed:
     """Bring a fresh pipeline to the state of the last run in ``directory`` (which
     ``pipeline.restore`` and replay update in place); return that run's sequence
     tracker and counters."""
-    notes = [f"{r.path.name}: {r.action}, {r.rows_kept} rows kept"
-             for r in recover_partial_files(directory) if r.action != "left_alone"]
+    notes = [f"{r.path.name}: {r.action} ({r.detail})" for r in clean_leftovers(directory)]
     checkpoint = read_checkpoint(directory)
     tracker, counters, positions = SequenceTracker(), Counters(), {}
     if checkpoint is not None:
@@ -118,56 +124,59 @@ def resume(directory: Path, pipeline: Pipeline) -> Resumed:
         tracker = SequenceTracker.from_state(checkpoint["tracker"])
         counters = Counters.from_state(checkpoint["counters"])
         positions = checkpoint["positions"]
-    committed = _replay_ledger(directory, positions.get("ledger"), tracker, counters)
-    _replay_rejects(directory, positions.get("rejects"), committed, counters)
-    replayed = _replay_archive(directory, positions.get("archive"), committed, pipeline)
-    for stem in ("archive", "rejects"):
-        dropped = drop_uncommitted(directory, stem, positions.get(stem), committed)
+    records = [MessageRecord.from_row(row) for _, _, batch in
+               tail_batches(directory, "ledger", positions.get("ledger"))
+               for row in batch.to_pylist()]
+    archive = tail_batches(directory, "archive", positions.get("archive"))
+    rejects = tail_batches(directory, "rejects", positions.get("rejects"))
+    kept_archive, kept_rejects = claimed(
+        records, [_key(b) for _, _, b in archive], [_key(b) for _, _, b in rejects],
+        [sum(e or 0 for e in b.column("events").to_pylist()) for _, _, b in rejects])
+    for record in records:
+        counters.add_message(record)
+        if record.outcome == ACCEPTED:
+            tracker.observe(record.source, record.sequence)
+    for _, _, batch in rejects[:kept_rejects]:
+        count_rejects(counters, batch)
+    replayed = sum(_accumulate(pipeline, batch) for _, _, batch in archive[:kept_archive])
+    for stem, tail, kept in (("archive", archive, kept_archive),
+                             ("rejects", rejects, kept_rejects)):
+        dropped = sum(batch.num_rows for _, _, batch in tail[kept:])
         if dropped:
-            notes.append(f"{stem}: {dropped} rows of the message in flight at the crash dropped")
-    if checkpoint is not None or committed:
-        notes.append(f"resumed: {len(committed)} messages after the checkpoint replayed "
+            notes.append(f"{stem}: {dropped} rows of the message in flight at the crash cut")
+        notes += _finish(directory, stem, tail[kept:])
+    for stem in OUTPUTS:
+        if stem not in ("archive", "rejects"):
+            notes += _finish(directory, stem, [])
+    if checkpoint is not None or records:
+        notes.append(f"resumed: {len(records)} messages after the checkpoint replayed "
                      f"({replayed} archive rows)")
     return Resumed(tracker, counters, notes)
 
 
-def _replay_ledger(directory: Path, position, tracker: SequenceTracker,
-                   counters: Counters) -> set[Key]:
-    """Count the ledger rows after ``position``; returns the messages they commit."""
-    committed = set()
-    for _, _, batch in tail_batches(directory, "ledger", position):
-        for row in batch.to_pylist():
-            record = MessageRecord.from_row(row)
-            committed.add((record.source, record.sequence))
-            counters.add_message(record)
-            if record.outcome == ACCEPTED:
-                tracker.observe(record.source, record.sequence)
-    return committed
+def _finish(directory: Path, stem: str, uncommitted: list[Entry]) -> list[str]:
+    """End every killed file of ``stem``, cutting the ``uncommitted`` batches."""
+    first_cut: dict[Path, int] = {}
+    for path, index, _ in uncommitted:
+        first_cut.setdefault(path, index)
+    notes = []
+    for path in stream_files(directory, stem):
+        report = finish_file(path, first_cut.get(path))
+        if report is not None and report.action != "in_use":
+            notes.append(f"{path.name}: {report.action} ({report.detail})")
+    return notes
 
 
-def _replay_rejects(directory: Path, position, committed: set[Key], counters: Counters) -> None:
-    """Count by reason the rejects rows after ``position`` of committed messages."""
-    for _, _, batch in tail_batches(directory, "rejects", position):
-        if message_keys(batch) <= committed:
-            count_rejects(counters, batch)
-
-
-def _replay_archive(directory: Path, position, committed: set[Key], pipeline: Pipeline) -> int:
-    """Fold the archive rows after ``position`` of committed messages into the
-    statistics; returns the rows replayed."""
-    replayed = 0
-    for _, _, batch in tail_batches(directory, "archive", position):
-        if not message_keys(batch) <= committed:
-            continue
-        table = pa.Table.from_batches([batch])
-        name = table.column("target")[0].as_py()
-        if name not in pipeline.targets:
-            continue
-        col = {c: table.column(c).to_numpy() for c in
-               ("site_tt_ns", "phase", "weight", "recipe_flags", "quality_flags",
-                "barycentric_correction_s")}
-        pipeline.accumulate(name, col["site_tt_ns"], col["phase"], col["weight"].astype(float),
-                            col["recipe_flags"], col["quality_flags"],
-                            col["barycentric_correction_s"])
-        replayed += batch.num_rows
-    return replayed
+def _accumulate(pipeline: Pipeline, batch: pa.RecordBatch) -> int:
+    """Fold one archive batch into the statistics; returns the rows replayed."""
+    table = pa.Table.from_batches([batch])
+    name = table.column("target")[0].as_py()
+    if name not in pipeline.targets:
+        return 0
+    col = {c: table.column(c).to_numpy() for c in
+           ("site_tt_ns", "phase", "weight", "recipe_flags", "quality_flags",
+            "barycentric_correction_s")}
+    pipeline.accumulate(name, col["site_tt_ns"], col["phase"], col["weight"].astype(float),
+                        col["recipe_flags"], col["quality_flags"],
+                        col["barycentric_correction_s"])
+    return batch.num_rows

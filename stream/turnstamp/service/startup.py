@@ -85,9 +85,10 @@ def output_metadata(config: ServiceConfig, env: Environment,
 
 def open_writers(out: Path, config: ServiceConfig, metadata: dict[str, str],
                  clock: Callable[[], float]) -> dict[str, RotatingArrowWriter]:
-    """One rotating writer per output stream (``files.schemas.OUTPUTS``)."""
+    """One rotating writer per output stream (``files.schemas.OUTPUTS``); they rotate
+    only between messages (``Ledger.commit``, the loop's rotation check)."""
     o = config.output
     return {stem: RotatingArrowWriter(out, stem, schema, rotate_seconds=o.rotate_minutes * 60,
                                       rotate_bytes=int(o.rotate_megabytes * 2**20),
-                                      metadata=metadata, clock=clock)
+                                      metadata=metadata, clock=clock, rotate_on_write=False)
             for stem, schema in schemas.OUTPUTS.items()}

@@ -173,7 +173,7 @@ def _read_tagging_output(folder: Path, streams: _Streams) -> list[Path]:
             extra_rejects.append(table.select(schemas.REJECTS.names))
     if not archive_files:
         raise ReportError(f"{folder}: not a turnstamp output folder: no stream files "
-                          "(archive-*.arrow, significance-*.arrow, ...) and no archive written "
+                          "(archive-*.arrows, significance-*.arrows, ...) and no archive written "
                           "by turnstamp tag; give the service's output.directory or the folder "
                           "of a turnstamp tag --out file")
     if extra_rejects:

@@ -140,7 +140,7 @@ def _reduce_file(path: Path, weighted: dict[tuple[str, str], bool],
 
 
 def _read_archive(path: Path) -> tuple[pa.Table, bool]:
-    """An archive file's rows, and whether the file is complete (a footer, or Parquet)."""
+    """An archive file's rows, and whether the file is complete (closed, or Parquet)."""
     if path.suffix.lower() == ".parquet":
         return read_any(path), True
     table, info = read_arrow_file_report(path)
