@@ -1,43 +1,14 @@
 """The control socket of a running service: no client can crash or stall it."""
 
 import json
-import threading
-import time
 from pathlib import Path
 
 import numpy as np
 import zmq
+from running import RunningService, wait_until
 
 from turnstamp.config import load_config
-from turnstamp.service.loop import Service
 from turnstamp.wire.encode import encode_message
-
-
-def _wait(predicate, timeout=30.0) -> bool:
-    deadline = time.time() + timeout
-    while time.time() < deadline:
-        if predicate():
-            return True
-        time.sleep(0.02)
-    return False
-
-
-class _Running:
-    """A Service on a thread (signals belong to the main thread: stop() instead)."""
-
-    def __init__(self, config):
-        self.service = Service(config)
-        self.thread = threading.Thread(target=self.service.run, daemon=True)
-
-    def __enter__(self):
-        self.thread.start()
-        status = Path(self.service.config.output.directory) / "status.json"
-        assert _wait(lambda: self.service.endpoints and status.exists(), 60)
-        return self.service
-
-    def __exit__(self, *exc):
-        self.service.stop()
-        self.thread.join(timeout=60)
 
 
 def _reply(socket, timeout_ms=3000):
@@ -48,7 +19,7 @@ def _reply(socket, timeout_ms=3000):
 def test_hostile_control_clients_neither_crash_nor_stall_the_service(service_config):
     config = load_config(service_config(control=True))
     context = zmq.Context()
-    running = _Running(config)
+    running = RunningService(config)
     with running as service:
         endpoint = service.endpoints["control"]
         # a REQ client sending two frames: answered with an error, the service lives
@@ -84,7 +55,7 @@ def test_hostile_control_clients_neither_crash_nor_stall_the_service(service_con
                 push.send_multipart(encode_message(
                     "control-test", 0, "UTC", {"event_id": np.arange(3, dtype=np.uint64),
                                                "time_ns": np.zeros(3, np.int64)}))
-                assert _wait(lambda: service.counters.messages_received == 1, 5)
+                assert wait_until(lambda: service.counters.messages_received == 1, 5)
                 req.connect(endpoint)
                 req.send(b"sources")
                 (reply,) = _reply(req)

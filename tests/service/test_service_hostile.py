@@ -3,43 +3,17 @@ oversized messages are counted, a source name is bound to its CurveZMQ key, and 
 control socket answers only key holders when CurveZMQ is on."""
 
 import shutil
-import threading
-import time
 from pathlib import Path
 
 import numpy as np
 import zmq
 import zmq.auth
+from running import RunningService, wait_until
 
 from turnstamp.config import load_config
 from turnstamp.files.reader import read_stream
-from turnstamp.service.loop import Service
 from turnstamp.wire.encode import encode_message
 from turnstamp.wire.publisher import ask_sources
-
-
-def _wait(predicate, timeout=30.0) -> bool:
-    deadline = time.time() + timeout
-    while time.time() < deadline:
-        if predicate():
-            return True
-        time.sleep(0.02)
-    return False
-
-
-class _Running:
-    def __init__(self, config):
-        self.service = Service(config)
-        self.thread = threading.Thread(target=self.service.run, daemon=True)
-
-    def __enter__(self):
-        self.thread.start()
-        assert _wait(lambda: self.service.endpoints, 60)
-        return self.service
-
-    def __exit__(self, *exc):
-        self.service.stop()
-        self.thread.join(timeout=60)
 
 
 def _frames(source, sequence, events=3):
@@ -52,13 +26,13 @@ def test_a_message_far_over_the_size_limit_gets_a_ledger_row(service_config):
     config = load_config(service_config())  # max_message_bytes = 2 000 000
     out = Path(config.output.directory)
     context = zmq.Context()
-    with _Running(config) as service, context.socket(zmq.PUSH) as push:
+    with RunningService(config) as service, context.socket(zmq.PUSH) as push:
         push.setsockopt(zmq.LINGER, 5000)
         push.connect(service.endpoints["intake"][0])
         header, body = _frames("big", 0)
         push.send_multipart([header, body + b"\x00" * 10_000_000])  # 5 times the limit
         push.send_multipart(_frames("big", 1))
-        assert _wait(lambda: service.counters.messages_received == 2, 20)
+        assert wait_until(lambda: service.counters.messages_received == 2, 20)
     context.term()
     ledger = read_stream(out, "ledger").to_pylist()
     assert [r["outcome"] for r in ledger] == ["oversized_message", "accepted"]
@@ -99,7 +73,7 @@ def test_a_source_name_bound_to_a_key_and_a_control_socket_behind_curve(tmp_path
     config = load_config(path)
     out = Path(config.output.directory)
     context = zmq.Context()
-    with _Running(config) as service:
+    with RunningService(config) as service:
         intake, control = service.endpoints["intake"][0], service.endpoints["control"]
         with _client(context, zmq.PUSH, keys, "beta") as beta:
             beta.connect(intake)
@@ -108,7 +82,7 @@ def test_a_source_name_bound_to_a_key_and_a_control_socket_behind_curve(tmp_path
         with _client(context, zmq.PUSH, keys, "alpha") as alpha:
             alpha.connect(intake)
             alpha.send_multipart(_frames("alpha", 1))
-        assert _wait(lambda: service.counters.messages_received == 3, 20)
+        assert wait_until(lambda: service.counters.messages_received == 3, 20)
         public, secret = zmq.auth.load_certificate(str(keys / "alpha.key_secret"))
         server, _ = zmq.auth.load_certificate(str(keys / "server.key"))
         sources = ask_sources(control, context=context, curve=(server, public, secret))

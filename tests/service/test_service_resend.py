@@ -13,6 +13,7 @@ import time
 
 import numpy as np
 import zmq
+from running import wait_until
 
 from turnstamp.core.simulate import NightPlan, simulate_night
 from turnstamp.core.timebase import unix_to_ns
@@ -30,13 +31,6 @@ def _free_port() -> int:
         return probe.getsockname()[1]
 
 
-def _wait(predicate, timeout=60.0) -> bool:
-    deadline = time.time() + timeout
-    while time.time() < deadline:
-        if predicate():
-            return True
-        time.sleep(0.05)
-    return False
 
 
 def _status(out):
@@ -50,8 +44,8 @@ def _start(command, out):
     since = unix_to_ns(time.time())
     process = subprocess.Popen(command, env={**os.environ, "PYTHONUNBUFFERED": "1"},
                                stderr=subprocess.DEVNULL, stdout=subprocess.DEVNULL)
-    assert _wait(lambda: _status(out).get("state") == "running"
-                 and _status(out)["computed_at_utc_ns"] >= since)
+    assert wait_until(lambda: _status(out).get("state") == "running"
+                      and _status(out)["computed_at_utc_ns"] >= since, 60, 0.05)
     return process
 
 
@@ -121,20 +115,20 @@ def test_the_readme_resend_recipe_after_a_kill_with_a_sender_at_full_rate(
     sender = Sender(publisher, messages, control)
     sender.start()
     try:
-        assert _wait(lambda: _status(out).get("counters", {}).get("messages_received", 0)
-                     >= 40)
+        assert wait_until(lambda: _status(out).get("counters", {}).get("messages_received", 0)
+                          >= 40, 60, 0.05)
         service.send_signal(signal.SIGKILL)  # messages in its memory are lost
         service.wait(timeout=30)
-        _wait(lambda: publisher.sequence >= 200 or not sender.is_alive(), 20)
+        wait_until(lambda: publisher.sequence >= 200 or not sender.is_alive(), 20)
         service = _start(command, out)
         # the messages queued at the sender arrive first, past what the kill lost: the
         # highest number alone would hide the gap (resend_after(highest) loses it)
-        _wait(lambda: _status(out).get("sources", {}).get(SOURCE, {}).get("missing_ranges"),
-              15)
+        wait_until(lambda: _status(out).get("sources", {}).get(SOURCE, {})
+                   .get("missing_ranges"), 15, 0.05)
         sender.restarted.set()
         sender.join(timeout=120)
         assert not sender.is_alive() and sender.failure is None, sender.failure
-        assert _wait(lambda: _committed(out) == set(range(MESSAGES)), 60)
+        assert wait_until(lambda: _committed(out) == set(range(MESSAGES)), 60)
     finally:
         service.send_signal(signal.SIGTERM)
         assert service.wait(timeout=60) == 0

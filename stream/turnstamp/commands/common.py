@@ -93,3 +93,25 @@ def positive_seconds(option: str, value: float) -> float:
     if not value > 0 or value == float("inf"):
         raise InputError(option, value, "must be a positive number of seconds")
     return value
+
+
+_ORIGIN_HELP = ("what time_ns counts from: 2000-01-01T12:00:00, unix (1970-01-01), gps "
+                "(1980-01-06) or any YYYY-MM-DDTHH:MM:SS in the time scale "
+                "(default 2000-01-01T12:00:00)")
+
+
+def add_event_file_options(parser: argparse.ArgumentParser) -> None:
+    """What tagging a file of events needs: spin models, the site, the time convention."""
+    parser.add_argument("--model", action="append", required=True, metavar="FILE",
+                        help="spin model file (TOML/JSON); repeat for several validity "
+                             "windows (required)")
+    add_site_option(parser)
+    parser.add_argument("--time-scale", default="UTC", choices=["UTC", "TAI", "GPS", "TT"],
+                        help="time scale of time_ns (default UTC)")
+    parser.add_argument("--time-origin", default="2000-01-01T12:00:00", metavar="ORIGIN",
+                        help=_ORIGIN_HELP)
+    parser.add_argument("--time-unit", choices=["ns", "us", "ms", "s"],
+                        help="unit of time_ns (default ns; saying ns also accepts times "
+                             "within 40 days of the origin)")
+    parser.add_argument("--target", help="target name written to the archive (default: "
+                                         "the model's target name)")

@@ -3,8 +3,7 @@ cluster, embedded on this machine or an existing one."""
 
 from __future__ import annotations
 
-from .common import add_site_option, add_table_cache_option
-from .tag import _ORIGIN_HELP
+from .common import add_event_file_options, add_table_cache_option
 
 __all__ = ["add_parser", "run"]
 
@@ -19,10 +18,7 @@ def add_parser(subparsers) -> None:
                     "with the same models and site are skipped: rerun to resume.")
     p.add_argument("dataset", help="folder of .parquet or .arrow files (or one file) with "
                                    "event_id and time_ns columns")
-    p.add_argument("--model", action="append", required=True, metavar="FILE",
-                   help="spin model file (TOML/JSON); repeat for several validity windows "
-                        "(required)")
-    add_site_option(p)
+    add_event_file_options(p)
     p.add_argument("--out-dir", required=True, metavar="DIR",
                    help="output dataset folder (required): Parquet files at the input's "
                         "relative paths, _statistics.json, _rejects/, _fragments/")
@@ -31,14 +27,6 @@ def add_parser(subparsers) -> None:
                         "start a local cluster of worker processes)")
     p.add_argument("--workers", type=int, metavar="N",
                    help="worker processes of the local cluster (default: one per CPU)")
-    p.add_argument("--time-scale", default="UTC", choices=["UTC", "TAI", "GPS", "TT"],
-                   help="time scale of time_ns (default UTC)")
-    p.add_argument("--time-origin", default="2000-01-01T12:00:00", metavar="ORIGIN",
-                   help=_ORIGIN_HELP)
-    p.add_argument("--time-unit", choices=["ns", "us", "ms", "s"],
-                   help="unit of time_ns (default ns)")
-    p.add_argument("--target", help="target name written to the archive (default: the "
-                                     "model's target name)")
     add_table_cache_option(p, None)
     p.add_argument("--json", action="store_true", help="print the summary as JSON on stdout "
                                                        "(default: text)")

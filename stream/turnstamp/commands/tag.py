@@ -2,13 +2,10 @@
 
 from __future__ import annotations
 
-from .common import add_site_option, add_table_cache_option
+from .common import add_event_file_options, add_table_cache_option
 
 __all__ = ["add_parser", "run"]
 
-_ORIGIN_HELP = ("what time_ns counts from: 2000-01-01T12:00:00, unix (1970-01-01), gps "
-                "(1980-01-06) or any YYYY-MM-DDTHH:MM:SS in the time scale "
-                "(default 2000-01-01T12:00:00)")
 
 
 def add_parser(subparsers) -> None:
@@ -18,22 +15,10 @@ def add_parser(subparsers) -> None:
                     "written to an archive file; read and written batch by batch.")
     p.add_argument("events", help="input (.arrow, .arrows or .parquet) with event_id and "
                                   "time_ns columns")
-    p.add_argument("--model", action="append", required=True, metavar="FILE",
-                   help="spin model file (TOML/JSON); repeat for several validity windows "
-                        "(required)")
-    add_site_option(p)
-    p.add_argument("--time-scale", default="UTC", choices=["UTC", "TAI", "GPS", "TT"],
-                   help="time scale of time_ns (default UTC)")
-    p.add_argument("--time-origin", default="2000-01-01T12:00:00", metavar="ORIGIN",
-                   help=_ORIGIN_HELP)
-    p.add_argument("--time-unit", choices=["ns", "us", "ms", "s"],
-                   help="unit of time_ns (default ns; saying ns also accepts times within "
-                        "40 days of the origin)")
+    add_event_file_options(p)
     p.add_argument("--out", required=True, metavar="FILE",
                    help="archive to write, .arrow or .parquet (required); refused if it "
                         "exists, unless --force")
-    p.add_argument("--target", help="target name written to the archive (default: the "
-                                     "model's target name)")
     add_table_cache_option(p, None)
     p.add_argument("--force", action="store_true",
                    help="overwrite existing outputs (default: refuse)")
