@@ -152,8 +152,9 @@ def clock_lines(results: dict) -> list[str]:
     lines.append("  reach on 200 background events/s:")
     for row in c["reach"]:
         lines.append(
-            f"    {row['pulsed_rate']:4.0f} pulsed/s: verdict after {row['minutes_median']} min "
-            f"(median; 90%: {row['minutes_90']}), σ at 30 min {row['sigma_us_at_30']:.1f} µs, "
+            f"    {row['pulsed_rate']:4.0f} pulsed/s: verdict after "
+            f"{_minutes(row['minutes_median'])} min (median; 90%: "
+            f"{_minutes(row['minutes_90'])}), σ at 30 min {row['sigma_us_at_30']:.1f} µs, "
             f"smallest offset flagged in 30 min (≥ 50% of nights) "
             f"{_us(row['smallest_flagged_us'])}")
     return lines
@@ -161,3 +162,7 @@ def clock_lines(results: dict) -> list[str]:
 
 def _us(value) -> str:
     return "-" if value is None else f"{value:.1f} µs"
+
+
+def _minutes(value) -> str:
+    return "never" if value is None else f"{value:.1f}"
