@@ -115,3 +115,18 @@ def add_event_file_options(parser: argparse.ArgumentParser) -> None:
                              "within 40 days of the origin)")
     parser.add_argument("--target", help="target name written to the archive (default: "
                                          "the model's target name)")
+
+
+def event_file_job(args):
+    """What ``add_event_file_options`` asked for, loaded: (target setup, site environment,
+    time scale, time convention)."""
+    from ..assemble import Environment
+    from ..config import load_site
+    from ..core.timebase import Scale
+    from ..files.inputs import load_spin_model
+    from ..tagging.run import offline_target
+    from ..tagging.times import TimeConvention
+
+    setup = offline_target([load_spin_model(m) for m in args.model], args.target)
+    return (setup, Environment.from_site(load_site(args.site)), Scale(args.time_scale),
+            TimeConvention(args.time_origin, args.time_unit))

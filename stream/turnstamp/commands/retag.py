@@ -3,7 +3,7 @@ cluster, embedded on this machine or an existing one."""
 
 from __future__ import annotations
 
-from .common import add_event_file_options, add_table_cache_option
+from .common import add_event_file_options, add_table_cache_option, event_file_job
 
 __all__ = ["add_parser", "run"]
 
@@ -40,22 +40,14 @@ def run(args) -> int:
     import sys
     from pathlib import Path
 
-    from ..assemble import Environment
-    from ..config import load_site
-    from ..core.timebase import Scale
-    from ..files.inputs import load_spin_model
     from ..retag.cluster import cluster_client, dashboard_link
     from ..retag.run import execute, prepare
-    from ..tagging.run import offline_target
-    from ..tagging.times import TimeConvention
     from ..views.progress import progress
 
-    convention = TimeConvention(args.time_origin, args.time_unit)
-    setup = offline_target([load_spin_model(m) for m in args.model], args.target)
-    env = Environment.from_site(load_site(args.site))
+    setup, env, scale, convention = event_file_job(args)
     quiet = args.quiet or args.json
     prepared = prepare(Path(args.dataset), Path(args.out_dir), setup, env,
-                       Scale(args.time_scale), convention=convention,
+                       scale, convention=convention,
                        table_cache=Path(args.table_cache) if args.table_cache else None)
     with cluster_client(args.scheduler, args.workers, dashboard=not quiet) as client:
         link = dashboard_link(client)

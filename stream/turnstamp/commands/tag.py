@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from .common import add_event_file_options, add_table_cache_option
+from .common import add_event_file_options, add_table_cache_option, event_file_job
 
 __all__ = ["add_parser", "run"]
 
@@ -33,21 +33,14 @@ def run(args) -> int:
     import io
     from pathlib import Path
 
-    from ..assemble import Environment
-    from ..config import load_site
-    from ..core.timebase import Scale
-    from ..files.inputs import load_spin_model
-    from ..tagging.run import offline_target, tag_file
-    from ..tagging.times import TimeConvention
+    from ..tagging.run import tag_file
     from ..views.progress import progress
 
-    convention = TimeConvention(args.time_origin, args.time_unit)
-    setup = offline_target([load_spin_model(m) for m in args.model], args.target)
-    env = Environment.from_site(load_site(args.site))
+    setup, env, scale, convention = event_file_job(args)
     quiet = io.StringIO() if args.quiet or args.json else None  # the bar drawn nowhere
     with progress("tagging events", stream=quiet) as advance:
         summary = tag_file(Path(args.events), Path(args.out), setup, env,
-                           Scale(args.time_scale),
+                           scale,
                            table_cache=Path(args.table_cache) if args.table_cache else None,
                            convention=convention, force=args.force, on_batch=advance)
     if args.json:
