@@ -30,6 +30,7 @@ from .core.targets import Recipe, TargetSetup
 from .core.timebase import NS_PER_S, ClockCorrection, LeapSecondTable, parse_instant
 from .errors import ConfigError
 from .files.bundled import bundled_leap_seconds, load_earth_orientation, open_ephemeris
+from .files.columns import to_numpy
 from .files.inputs import load_spin_model, load_template
 
 if TYPE_CHECKING:
@@ -195,13 +196,13 @@ def _read_table(path: Path, provenance: dict[str, str]) -> CorrectionTable | Non
         log.warning("ignoring cached table %s: provenance differs", path)
         return None
     width = arrow.schema.field("coefficients_s").type.list_size
-    column = arrow["coefficients_s"]
-    lists = column.chunk(0) if column.num_chunks == 1 else column.combine_chunks()
+    arrow = arrow.combine_chunks()
+    lists = arrow["coefficients_s"].chunk(0)
     # the child values (not .flatten(), which loads pyarrow.compute: 0.1 s at start-up)
-    coefficients = lists.values.slice(lists.offset * width, len(lists) * width).to_numpy()
+    coefficients = to_numpy(lists.values.slice(lists.offset * width, len(lists) * width))
     return CorrectionTable.from_columns(
-        arrow["segment_start_ns"].to_numpy(), coefficients.reshape(-1, width),
-        arrow["flags"].to_numpy(), stored)
+        to_numpy(arrow["segment_start_ns"].chunk(0)), coefficients.reshape(-1, width),
+        to_numpy(arrow["flags"].chunk(0)), stored)
 
 
 def phase_calculators_for(models: Sequence[SpinModel]) -> list[PhaseCalculator]:

@@ -47,6 +47,8 @@ def test_a_cache_that_cannot_be_written_only_costs_the_parse(tmp_path, monkeypat
 
 
 def test_tag_starts_without_astropy_scipy_or_zmq(cache, tmp_path, demo_site_file):
+    # nor pandas, which pyarrow imports on its first array built from numpy or a
+    # list (0.5 s), nor pyarrow.compute: tag builds and reads its columns from buffers
     from turnstamp.core.timebase import NS_PER_S, parse_instant
     from turnstamp.demo import data_file
 
@@ -59,7 +61,8 @@ def test_tag_starts_without_astropy_scipy_or_zmq(cache, tmp_path, demo_site_file
             "from turnstamp.commands.main import main\n"
             f"assert main(['tag', {str(events)!r}, '--model', {data_file('lantern.toml')!r}, "
             f"'--site', {str(demo_site_file)!r}, '--out', sys.argv[1], '--quiet']) == 0\n"
-            "print('loaded:' + ','.join(m for m in ('astropy', 'scipy', 'zmq')\n"
+            "print('loaded:' + ','.join(m for m in ('astropy', 'scipy', 'zmq', 'pandas',\n"
+            "                                              'pyarrow.compute')\n"
             "                           if m in sys.modules))\n")
     first = subprocess.run([sys.executable, "-c", code, str(tmp_path / "a.arrow")],
                            capture_output=True, text=True, timeout=300, check=True)

@@ -33,8 +33,11 @@ def run(args) -> int:
     import io
     from pathlib import Path
 
+    from ..tagging.allocator import keep_freed_memory
     from ..tagging.run import tag_file
     from ..views.progress import progress
+
+    keep_freed_memory()
 
     setup, env, scale, convention = event_file_job(args)
     quiet = io.StringIO() if args.quiet or args.json else None  # the bar drawn nowhere

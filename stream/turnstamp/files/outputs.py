@@ -16,12 +16,13 @@ from ..core.accounting import FeedResult
 from ..core.batch import EventBatch
 from ..core.targets import TargetSetup
 from . import schemas
+from .columns import dictionary, numeric, strings
 
 __all__ = ["archive_table", "archive_tables", "rejects_table", "message_reject_table",
            "ledger_table", "rows_table", "clock_table"]
 
 
-_ZEROS = pa.array(np.zeros(1 << 16, np.int32))
+_ZEROS = np.zeros(0, np.int32)
 _DICTIONARIES: dict[str, pa.Array] = {}
 
 
@@ -29,36 +30,24 @@ def _constant(value: str, n: int) -> pa.DictionaryArray:
     """A column repeating one string (indices are slices of one zero array)."""
     global _ZEROS
     if n > len(_ZEROS):
-        _ZEROS = pa.array(np.zeros(n, np.int32))
+        _ZEROS = np.zeros(max(n, 1 << 16), np.int32)
     dictionary = _DICTIONARIES.get(value)
     if dictionary is None:
         if len(_DICTIONARIES) > 1024:
             _DICTIONARIES.clear()
-        dictionary = _DICTIONARIES[value] = pa.array([value])
-    return pa.DictionaryArray.from_arrays(_ZEROS.slice(0, n), dictionary)
+        dictionary = _DICTIONARIES[value] = strings([value])
+    return pa.DictionaryArray.from_arrays(numeric(_ZEROS[:n]), dictionary)
 
 
 def archive_table(columns: dict, source: str, sequence: int, target: str,
                   model_ids: list[str]) -> pa.Table:
     """Archive rows of one target from ``FeedResult.archive[target]``."""
     n = len(columns["event_id"])
-    arrays = {
-        "event_id": columns["event_id"],
-        "source": _constant(source, n),
-        "sequence": np.full(n, sequence, np.uint64),
-        "target": _constant(target, n),
-        "site_tt_ns": columns["site_tt_ns"],
-        "barycentric_tdb_ns": columns["barycentric_tdb_ns"],
-        "barycentric_correction_s": columns["barycentric_correction_s"],
-        "phase": columns["phase"],
-        "pulse_number": columns["pulse_number"],
-        "weight": columns["weight"],
-        "recipe_flags": columns["recipe_flags"],
-        "model_id": pa.DictionaryArray.from_arrays(pa.array(columns["model_index"]),
-                                                   pa.array(model_ids)),
-        "quality_flags": columns["quality_flags"],
-    }
-    return pa.Table.from_pydict(arrays, schema=schemas.ARCHIVE)
+    made = {"source": _constant(source, n), "sequence": numeric(np.full(n, sequence, np.uint64)),
+            "target": _constant(target, n),
+            "model_id": dictionary(columns["model_index"], model_ids)}
+    return pa.Table.from_arrays([made[name] if name in made else numeric(columns[name])
+                                 for name in schemas.ARCHIVE.names], schema=schemas.ARCHIVE)
 
 
 def archive_tables(batch: EventBatch, result: FeedResult,

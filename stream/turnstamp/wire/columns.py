@@ -18,6 +18,7 @@ import pyarrow as pa
 from ..core.batch import MISSING_ID, MISSING_TIME, OPTIONAL_COLUMNS, EventBatch
 from ..core.timebase import Scale
 from ..errors import RejectReason
+from ..files.columns import to_numpy
 from ..files.schemas import EVENTS
 from .message import WIRE_VERSION, MessageContext, clipped, shown
 
@@ -143,7 +144,7 @@ def column_to_numpy(name: str, column: pa.Array, context: MessageContext) -> np.
         column = column.cast(rule.arrow_type, safe=not rounding)
     if column.null_count:
         column = column.fill_null(pa.scalar(rule.fill, rule.arrow_type))
-    return column.to_numpy(zero_copy_only=True)
+    return to_numpy(column)
 
 
 def _refuse_negative(name: str, column: pa.Array, context: MessageContext) -> None:
