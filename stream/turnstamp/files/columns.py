@@ -51,10 +51,11 @@ def dictionary(indices: np.ndarray, words: Sequence[str]) -> pa.DictionaryArray:
 
 def to_numpy(column: pa.Array) -> np.ndarray:
     """A numeric Arrow array without nulls as a read-only numpy view of its values
-    (a bool array is unpacked); any other array through ``Array.to_numpy``."""
+    (a bool array is unpacked); any other (or empty) array through ``Array.to_numpy``."""
     kind = column.type
-    if column.null_count or not len(column) or not (pa.types.is_integer(kind) or pa.types.is_floating(kind)
-                                 or pa.types.is_boolean(kind)):
+    numeric_kind = (pa.types.is_integer(kind) or pa.types.is_floating(kind)
+                    or pa.types.is_boolean(kind))
+    if column.null_count or not len(column) or not numeric_kind:
         return column.to_numpy(zero_copy_only=False)
     data = column.buffers()[1]
     if pa.types.is_boolean(kind):
