@@ -10,6 +10,12 @@ of true offsets within 1σ and 2σ of the likelihood fit. Just above the detecti
 threshold a few fits lock onto noise (errors of a large part of a cycle, which no
 estimator avoids there); they are counted (``wrong_peak``: error > 0.1 cycles) and
 the scatter of the rest is given too (1.4826 × median absolute error).
+
+Each figure is itself a Monte Carlo estimate, given with its standard error: for a
+scatter ratio r from n trials r/sqrt(2(n − 1)) (the standard deviation of a sample
+standard deviation, Gaussian errors), for a coverage sqrt(c(1 − c)/n) at the nominal
+c (binomial).
+At 2 000 trials these are 1.6% and 0.010: small enough to tell ±0.03 apart.
 """
 
 from __future__ import annotations
@@ -107,9 +113,13 @@ def efficiency_cell(args: tuple[str, float, int, int, int]) -> dict:
         "shape": name, "background": background, "events": n, "trials": trials,
         "detected": detected, "bound_cycles": bound,
         "likelihood_over_bound": float(np.std(errors) / bound) if detected > 1 else None,
+        "likelihood_over_bound_se": float(np.std(errors) / bound / math.sqrt(2 * (detected - 1)))
+        if detected > 1 else None,
         "correlation_over_bound": float(np.std(correlation) / bound) if detected > 1 else None,
         "coverage_1sigma": float(np.mean(e <= s)) if detected else None,
         "coverage_2sigma": float(np.mean(e <= 2 * s)) if detected else None,
+        "coverage_1sigma_se": math.sqrt(0.68 * 0.32 / detected) if detected else None,
+        "coverage_2sigma_se": math.sqrt(0.95 * 0.05 / detected) if detected else None,
         "ambiguous": ambiguous, "wrong_peak": int(np.sum(e > 0.1)),
         "likelihood_core_over_bound": robust,
     }
