@@ -123,7 +123,7 @@ def clock_lines(results: dict) -> list[str]:
     c = results["clock"]
     lines = [f"clock verdict ({c['seconds']:.0f} s on {c['workers']} cores)",
              "  offset estimator: scatter / Cramér–Rao bound (likelihood; cross-correlation) "
-             "and coverage within 1σ / 2σ, detected trials"]
+             "[floor on 20 harmonics] and coverage within 1σ / 2σ, detected trials"]
     judged = [row for row in c["efficiency"]
               if row["likelihood_over_bound"] is not None
               and row["detected"] >= 0.9 * row["trials"]]
@@ -132,12 +132,13 @@ def clock_lines(results: dict) -> list[str]:
         cov = "" if row["coverage_1sigma"] is None else \
             f"{row['coverage_1sigma']:.3f} / {row['coverage_2sigma']:.3f}"
         shown = "-" if ratio is None else \
-            f"{ratio:.3f}±{row['likelihood_over_bound_se']:.3f} ({cross:.3f})"
+            f"{ratio:.3f}±{row['likelihood_over_bound_se']:.3f} ({cross:.3f}) " \
+            f"[{row['moments_floor']:.3f}]"
         extra = "" if not row["wrong_peak"] else \
             f"  [{row['wrong_peak']} locked on noise; the rest " \
             f"{row['likelihood_core_over_bound']:.3f}]"
         lines.append(f"    {row['shape']:12s} b={row['background']:.1f} N={row['events']:6d} "
-                     f"detected {row['detected']:5d}/{row['trials']:<5d} {shown:22s} {cov}"
+                     f"detected {row['detected']:5d}/{row['trials']:<5d} {shown:30s} {cov}"
                      + extra)
     lines += _efficiency_verdict(judged)
     n = c["nights"]
