@@ -156,8 +156,10 @@ def test_an_interrupted_resend_resumes_where_it_stopped(context):
 
 
 def test_resend_refuses_what_is_no_longer_kept(context):
+    # a send waits for the puller to connect (with no wait it raced the connection
+    # on a busy machine and failed with zmq.Again)
     publisher = EventPublisher("tcp://127.0.0.1:*", "b", bind=True, context=context,
-                               keep_last=2, send_timeout_ms=0)
+                               keep_last=2, send_timeout_ms=10_000)
     pull = context.socket(zmq.PULL)
     pull.connect(publisher.last_endpoint)
     for _ in range(5):
