@@ -85,13 +85,18 @@ def test_no_site(capsys, folder):
     (lambda: (night_times() - UNIX_EPOCH) / NS_PER_S, ["double", "--time-unit s"]),
     # floating-point MJD
     (lambda: 61376.0833 + np.arange(500) / 864000.0, ["double", "MJD"]),
+    # our own nanoseconds, but as floating point: the column must change, no option helps
+    (lambda: night_times().astype(float), ["double", "write time_ns as int64",
+                                           "since 2000-01-01T12:00:00 they give 2026-"]),
 ])
 def test_times_in_another_convention(capsys, folder, demo_site_file, values, naming):
     events = events_file(folder, values())
     out = folder / "t.arrow"
-    refused(capsys, events, "--model", MODEL, "--site", demo_site_file, "--out", out,
-            naming=naming)
+    said = refused(capsys, events, "--model", MODEL, "--site", demo_site_file, "--out", out,
+                   naming=naming)
     assert not out.exists()
+    if "write time_ns as int64" in naming:
+        assert "--time-unit ns" not in said  # floats are refused whatever the unit
 
 
 def test_the_suggested_convention_then_works(capsys, folder, demo_site_file):

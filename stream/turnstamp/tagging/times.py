@@ -185,22 +185,41 @@ def _float_hint(column: pa.Array, plausible: PlausibleRange | None) -> str:
     if 30_000 < median < 100_000:
         return (f" (the values, about {median:.1f}, look like MJD days: convert them to "
                 "integer ns; a float MJD cannot hold a time to better than a microsecond)")
-    return _readings_hint(median, plausible)
+    readings = _readings_hint(median, plausible, units=("s", "ms", "us"))
+    as_ns = _plausible_readings(median, plausible, None, ("ns",))
+    if as_ns:  # floats never hold today's ns exactly: the column itself must change
+        since = "; ".join(f"since {_ORIGIN_NAMES[origin]} they give {_instant(ns)}"
+                          for origin, _, ns in as_ns[:2])
+        return (f" (the values look like nanoseconds ({since}) held as floating point, "
+                f"which rounds them by up to {float(np.spacing(median)) / 2:.0f} ns: write "
+                "time_ns as int64)" + readings)
+    return readings
 
 
-def _readings_hint(raw_median: float, plausible: PlausibleRange | None,
-                   current: TimeConvention | None = None) -> str:
-    """``; read as ...`` naming the readings of the raw value that are plausible (and
-    not themselves within 40 days of their origin), most common first."""
+def _plausible_readings(raw_median: float, plausible: PlausibleRange | None,
+                        current: TimeConvention | None,
+                        units: tuple[str, ...]) -> list[tuple[str, str, int]]:
+    """(origin, unit, ns) of the readings of the raw value in ``units`` that are
+    plausible (and not themselves within 40 days of their origin), most common first."""
     found = []
     for origin, unit in _READINGS:
-        if current is not None and (origin, unit) == (current.origin, current.unit or "ns"):
+        if unit not in units or (current is not None
+                                 and (origin, unit) == (current.origin, current.unit or "ns")):
             continue
         ns = raw_median * UNITS[unit] + ORIGINS[origin]
         lowest = ORIGINS["unix"] + 20 * 365 * NS_PER_DAY  # 1990, when no range is known
         fits = plausible.contains(ns) if plausible else lowest <= ns <= 100 * 365 * NS_PER_DAY
         if fits and abs(ns - ORIGINS[origin]) >= _NEAR_ORIGIN_NS:
             found.append((origin, unit, ns))
+    return found
+
+
+def _readings_hint(raw_median: float, plausible: PlausibleRange | None,
+                   current: TimeConvention | None = None,
+                   units: tuple[str, ...] = tuple(UNITS)) -> str:
+    """``; read as ...`` naming the plausible readings of the raw value in ``units``
+    (``_plausible_readings``) with the options that give them."""
+    found = _plausible_readings(raw_median, plausible, current, units)
     if not found:
         return ""
     words = [f"{_UNIT_WORDS[unit]} since {_ORIGIN_NAMES[origin]} give {_instant(ns)} "
