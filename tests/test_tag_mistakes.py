@@ -69,6 +69,24 @@ def test_no_site(capsys, folder):
     refused(capsys, events, "--model", MODEL, "--out", folder / "t.arrow", naming=["--site"])
 
 
+def test_files_given_to_the_wrong_option(capsys, folder, demo_site_file):
+    events = events_file(folder, night_times())
+    out = ["--out", folder / "t.arrow"]
+    # a missing file is named by the option that asked for it
+    refused(capsys, events, "--model", folder / "nope.toml", "--site", demo_site_file, *out,
+            naming=["--model", "nope.toml", "cannot read"])
+    refused(capsys, events, "--model", MODEL, "--site", folder / "nope.toml", *out,
+            naming=["--site", "nope.toml", "cannot read"])
+    # a file of the other kind is said to be one, not listed as missing fields
+    said = refused(capsys, events, "--model", demo_site_file, "--site", demo_site_file, *out,
+                   naming=["site file", "not a spin model"])
+    assert "required field missing" not in said
+    refused(capsys, events, "--model", data_file("lantern-template.toml"), "--site",
+            demo_site_file, *out, naming=["pulse template", "not a spin model"])
+    refused(capsys, events, "--model", MODEL, "--site", MODEL, *out,
+            naming=["no [site] table", "looks like a spin model"])
+
+
 @pytest.mark.parametrize("values, naming", [
     # Unix-epoch nanoseconds: the most common mistake (read as ours they fall in 2056)
     (lambda: night_times() - UNIX_EPOCH, ["time_ns", "--time-origin unix",

@@ -297,6 +297,16 @@ class SiteFile(BaseModel):
     model_config = ConfigDict(frozen=True, extra="ignore")
     site: SiteConfig
 
+    @model_validator(mode="before")
+    @classmethod
+    def _has_site(cls, data):
+        if isinstance(data, dict) and "site" not in data:
+            kind = " (this looks like a spin model)" if "frequency_hz" in data else ""
+            raise ValueError(f"no [site] table{kind}: give a site file (a [site] table with "
+                             "name, latitude_deg, longitude_deg, height_m) or a service "
+                             "configuration")
+        return data
+
 
 def _resolve(data, base: Path):
     """Make relative paths in the known path fields absolute against ``base``."""

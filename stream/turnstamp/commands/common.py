@@ -18,6 +18,7 @@ __all__ = [
     "add_site_option",
     "add_table_cache_option",
     "site_environment",
+    "option_file",
     "utc_instant",
     "utc_text",
     "positive_seconds",
@@ -59,12 +60,23 @@ def add_table_cache_option(parser: argparse.ArgumentParser, default: str | None)
                         help=f"folder of cached barycentre tables ({where})")
 
 
+def option_file(option: str, load, path):
+    """``load(path)``; a file that is missing or unreadable is named by its option
+    (``--model = 'x.toml': cannot read``), not by a loader's own word for it."""
+    try:
+        return load(path)
+    except InputError as exc:
+        if exc.field in ("path", "config"):
+            raise InputError(option, exc.value, exc.problem) from None
+        raise
+
+
 def site_environment(path: str):
     """The ``Environment`` (site tables) of the ``--site`` file."""
     from ..assemble import Environment
     from ..config import load_site
 
-    return Environment.from_site(load_site(path))
+    return Environment.from_site(option_file("--site", load_site, path))
 
 
 def utc_text(ns: int) -> str:
@@ -120,13 +132,12 @@ def add_event_file_options(parser: argparse.ArgumentParser) -> None:
 def event_file_job(args):
     """What ``add_event_file_options`` asked for, loaded: (target setup, site environment,
     time scale, time convention)."""
-    from ..assemble import Environment
-    from ..config import load_site
     from ..core.timebase import Scale
     from ..files.inputs import load_spin_model
     from ..tagging.run import offline_target
     from ..tagging.times import TimeConvention
 
-    setup = offline_target([load_spin_model(m) for m in args.model], args.target)
-    return (setup, Environment.from_site(load_site(args.site)), Scale(args.time_scale),
+    setup = offline_target([option_file("--model", load_spin_model, m) for m in args.model],
+                           args.target)
+    return (setup, site_environment(args.site), Scale(args.time_scale),
             TimeConvention(args.time_origin, args.time_unit))

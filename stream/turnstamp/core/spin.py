@@ -162,6 +162,18 @@ class SpinModel(BaseModel):
     binary: BinaryParameters | None = None
     provenance: dict[str, str] = Field(default_factory=dict)
 
+    @model_validator(mode="before")
+    @classmethod
+    def _a_spin_model(cls, data):
+        """A file of another kind, said as such rather than as a list of missing fields."""
+        if isinstance(data, dict) and "frequency_hz" not in data:
+            for table, kind in (("site", "a site file or a service configuration"),
+                                ("components", "a pulse template"),
+                                ("binned_profile", "a pulse template")):
+                if table in data:
+                    raise ValueError(f"this is {kind} (it has '{table}'), not a spin model")
+        return data
+
     @field_validator("frequency_hz")
     @classmethod
     def _positive_frequency(cls, value):

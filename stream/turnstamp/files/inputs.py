@@ -41,7 +41,9 @@ def validate(model: type[M], data: dict, source: str, error: type[InputError] = 
         for item in exc.errors():
             where = ".".join(str(part) for part in item["loc"]) or "(top level)"
             value = item.get("input")
-            if item["type"] == "missing":
+            if not item["loc"]:  # the file as a whole (e.g. a file of another kind)
+                problems.append(item["msg"].removeprefix("Value error, "))
+            elif item["type"] == "missing":
                 problems.append(f"{where}: required field missing")
             elif item["type"] == "extra_forbidden":
                 problems.append(f"{where} = {value!r}: unknown field")
