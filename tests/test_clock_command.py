@@ -102,3 +102,20 @@ def test_clock_refuses_what_it_cannot_use(tmp_path, capsys, demo_site_file):
     assert main(["clock", str(bad), "--model", model, "--template", template,
                  "--site", demo_site_file]) == 2
     assert "not an archive" in capsys.readouterr().err
+
+
+def test_clock_names_the_option_of_a_wrong_file(tmp_path, capsys, demo_env, lantern,
+                                                night_start_tt, demo_site_file):
+    model, template = data_file("lantern.toml"), data_file("lantern-template.toml")
+    events, tagged = tmp_path / "events.arrow", tmp_path / "tagged.arrow"
+    _events_file(events, demo_env, lantern, night_start_tt, "none", seconds=60)
+    assert main(["tag", str(events), "--model", model, "--site", demo_site_file,
+                 "--out", str(tagged), "--quiet"]) == 0
+    capsys.readouterr()
+    common = ["clock", str(tagged), "--site", demo_site_file]
+    assert main([*common, "--model", model, "--template", str(tmp_path / "none.toml")]) == 2
+    assert "--template = " in capsys.readouterr().err
+    assert main([*common, "--model", model, "--template", model]) == 2
+    assert "this is a spin model" in capsys.readouterr().err  # not a list of unknown fields
+    assert main([*common, "--model", template, "--template", template]) == 2
+    assert "this is a pulse template" in capsys.readouterr().err

@@ -62,6 +62,17 @@ class PulseTemplate(BaseModel):
     binned_profile: list[float] | None = None
     unpulsed_fraction: float = 0.5
 
+    @model_validator(mode="before")
+    @classmethod
+    def _a_template(cls, data):
+        """A file of another kind, said as such rather than as a list of unknown fields."""
+        if isinstance(data, dict) and not {"components", "binned_profile"} & data.keys():
+            for key, kind in (("frequency_hz", "a spin model"),
+                              ("site", "a site file or a service configuration")):
+                if key in data:
+                    raise ValueError(f"this is {kind} (it has '{key}'), not a pulse template")
+        return data
+
     @field_validator("name")
     @classmethod
     def _check_name(cls, v: str) -> str:
