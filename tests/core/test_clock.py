@@ -336,6 +336,27 @@ def test_no_signal_and_insufficient_signal():
     assert (verdict.status, verdict.kind) == ("WARN", "insufficient_signal")
 
 
+def test_noise_nights_never_name_a_fault():
+    rng = np.random.default_rng(10)
+    # a sparse night (2 events a minute, no pulse): tiny chunks pass a 3σ line far more
+    # often than 0.13 %, so none of them may count as a detection
+    times = EPOCH_NS + np.sort(rng.integers(0, int(NIGHT_S) * 10**9, 1000))
+    binned = TimeBinnedMoments(10 * 10**9).update(times, rng.random(1000))
+    chunks = chunk_offsets(binned, TEMPLATE, 60 * 10**9)
+    assert not any(c.detected for c in chunks)
+    assert diagnose(chunks, fit_offset(binned.total(), TEMPLATE), NU).kind == "no_signal"
+    # a dense night without pulse: 480 chunks, 6 over the line at random phases (0.65
+    # expected; 6 or more has a chance of 6e-5, far from a 5σ effect): still no signal
+    night = fit_offset(PhaseMoments().update(rng.random(480_000)), TEMPLATE)
+    assert not night.detected
+    chunks = [ChunkOffset(EPOCH_NS + i * 60 * 10**9, EPOCH_NS + (i + 1) * 60 * 10**9,
+                          EPOCH_NS + i * 60 * 10**9 + 30 * 10**9,
+                          float(rng.uniform(-0.5, 0.5)), 0.02, 100.0, 30.0, 1000, 1000.0,
+                          i % 80 == 7) for i in range(480)]
+    verdict = diagnose(chunks, night, NU)
+    assert (verdict.status, verdict.kind, verdict.n_used) == ("WARN", "no_signal", 6)
+
+
 def test_verdict_from_synthetic_chunks_round_trips_to_json():
     rng = np.random.default_rng(9)
     night = fit_offset(PhaseMoments().update(TEMPLATE.sample(50_000, rng)), TEMPLATE)

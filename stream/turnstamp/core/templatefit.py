@@ -56,10 +56,15 @@ from .template import PulseTemplate
 from .templatelikelihood import bracketed_root, likelihood_offset
 from .templatenoise import detection_sigma, event_variances, null_skewness
 
-__all__ = ["OffsetFit", "fit_offset", "DETECTION_SIGMA"]
+__all__ = ["OffsetFit", "fit_offset", "DETECTION_SIGMA", "MIN_DETECTION_EVENTS"]
 
 DETECTION_SIGMA = 3.0
 """One-sided Gaussian σ (after the search over shifts) above which a fit is 'detected'."""
+MIN_DETECTION_EVENTS = 20.0
+"""Fewest effective events, (Σw)²/Σw², for a detection. Below it the skewness-corrected
+normal tail of the null underestimates chance: measured on uniform phases with the
+demo template, 3σ was passed by 5.3 % of 2-event sets and ~1 % of 3–10-event sets,
+against 0.13 % nominal (0.17 % at 20 events, 0.13 % at 50)."""
 
 _GRID_PER_HARMONIC = 16  # grid step 1/(16 m) cycles: every local maximum of C is bracketed
 _MIN_GRID = 128
@@ -83,7 +88,8 @@ class OffsetFit:
     harmonics_used : int
         Number of harmonics m in the fit.
     detected : bool
-        ``significance_sigma ≥ DETECTION_SIGMA`` (or the caller's threshold).
+        ``significance_sigma ≥ DETECTION_SIGMA`` (or the caller's threshold), with at
+        least ``MIN_DETECTION_EVENTS`` effective events.
     significance_sigma : float
         One-sided Gaussian σ of the amplitude after the search over shifts.
     count, sum_w, sum_w2 : float
@@ -325,7 +331,9 @@ def fit_offset(
     shift = _maximise_correlation(q, k)
     amplitude = _correlation(q, k, shift) / s_power
     significance = _significance(moments, s, k, amplitude, s_power)
-    base.update(detected=bool(significance >= detect_sigma), significance_sigma=significance)
+    enough = sum_w * sum_w >= MIN_DETECTION_EVENTS * sum_w2
+    base.update(detected=bool(significance >= detect_sigma and enough),
+                significance_sigma=significance)
     if method == "likelihood":
         # every harmonic the data hold: where the template has no power of its own they
         # still carry information through the photon-noise covariance (f = 1 + cos 2πφ)

@@ -35,9 +35,10 @@ from collections.abc import Callable
 from typing import Any
 
 import numpy as np
+from scipy import special
 
 from ..cycles import cycles_to_us, wrap_cycles
-from ..templatefit import OffsetFit
+from ..templatefit import DETECTION_SIGMA, MIN_DETECTION_EVENTS, OffsetFit
 from . import numbers, wording
 from .apparent import ConstantSpin, SpinView
 from .chunks import ChunkOffset
@@ -112,7 +113,7 @@ def diagnose(
                                   tolerance_us=scale.us, n_chunks=len(chunks),
                                   n_used=len(used), reference_ns=None, span_s=0.0)
     night = night_fit if _night_detected(night_fit) else None
-    if night is None and len(used) < MIN_CHUNKS:
+    if night is None and (len(used) < MIN_CHUNKS or chance_detections(chunks, used)):
         lines = wording.no_signal_lines(chunks, used, night_fit)
         return ClockVerdict(status="WARN", kind="no_signal", lines=lines, size=None,
                             **result)
@@ -174,6 +175,17 @@ def usable_chunks(chunks: list[ChunkOffset]) -> list[ChunkOffset]:
     """Chunks that detected the pulse unambiguously, known to ``MAX_CHUNK_SIGMA`` cycles."""
     return [c for c in chunks if c.detected and not c.ambiguous
             and math.isfinite(c.shift_cycles) and 0 < c.sigma_cycles <= MAX_CHUNK_SIGMA]
+
+
+def chance_detections(chunks: list[ChunkOffset], used: list[ChunkOffset]) -> bool:
+    """The usable chunks are no more than chance gives: among the M chunks with enough
+    events to detect anything, noise alone passes each one's threshold with
+    probability p = Φ(−DETECTION_SIGMA), and k or more of them do so with a
+    probability (binomial tail) above that of a significant effect (Φ(−5))."""
+    able = sum(c.sum_w > 0 and c.count >= MIN_DETECTION_EVENTS for c in chunks)
+    chance = float(special.ndtr(-DETECTION_SIGMA))
+    tail = float(special.bdtrc(len(used) - 1, able, chance)) if used else 1.0
+    return tail > FALSE_ALARM["significant"]
 
 
 def _night_detected(night_fit: OffsetFit | None) -> bool:
