@@ -10,7 +10,8 @@ efficiency   scatter of the template offset over the Cramér–Rao bound and the
              errors), and printed beside the floor of estimators on 20 harmonics.
 false alarms FAIL and WARN rates over clean nights of 0.5–8 h, bright (20 pulsed/s) and
              faint (1–5 pulsed/s) on 200/s background (``clocknight``); ≤ 0.5% FAIL,
-             ≤ 2% WARN (undecided nights counted apart).
+             ≤ 2% WARN (undecided nights counted apart); and nights with no pulse at
+             all, dense and sparse, none of which may name a fault.
 reach        minutes to a verdict, and the smallest clock offset flagged in 30 minutes,
              for 20, 5 and 1 pulsed events/s on 200/s.
 
@@ -60,6 +61,10 @@ def bench_clock(quick: bool = False, workers: int | None = None) -> dict:
     nights = _map(clean_night, [(float(h) * 3600, float(r), 5000 + i)
                                 for i, (h, r) in enumerate(zip(hours, rates, strict=True))],
                   workers)
+    # nights without a pulse: dense (200/s) and sparse (2 events a minute)
+    n_noise = 40 if not quick else 4
+    noise = _map(clean_night, [(float(h) * 3600, 0.0, 6000 + i, 200.0 if i % 2 else 1 / 30)
+                               for i, h in enumerate(hours[:n_noise])], workers)
     per_rate = 20 if not quick else 4
     limits = {20.0: 30, 5.0: 60, 1.0: 120}
     reach = _map(minutes_to_verdict, [(r, limits[r], 7000 + i * 100 + j)
@@ -68,6 +73,10 @@ def bench_clock(quick: bool = False, workers: int | None = None) -> dict:
     flags = _flagged_offsets(reach, per_rate, workers, flagged)
     return {"clock": {
         "efficiency": efficiency, "nights": _night_summary(nights),
+        "noise_nights": {"nights": len(noise),
+                         "fault_named": sum(n["status"] != "OK" and n["kind"] != "no_signal"
+                                            for n in noise),
+                         "kinds": dict(Counter(n["kind"] for n in noise))},
         "reach": _reach_summary(reach, flags), "seconds": time.perf_counter() - started,
         "workers": workers}}
 
@@ -148,6 +157,10 @@ def clock_lines(results: dict) -> list[str]:
               f"{n['hours'][1]:.1f} h), {n['undecided']} undecided; of the decided: "
               f"FAIL {100 * n['fail_rate']:.2f}% (target ≤ 0.5%), WARN "
               f"{100 * n['warn_rate']:.2f}% (target ≤ 2%); flagged kinds {n['flagged_kinds']}"]
+    quiet = c["noise_nights"]
+    lines.append(f"  nights without a pulse: {quiet['nights']} (half on 200/s, half on 2 "
+                 f"events a minute), a fault named in {quiet['fault_named']} (target 0); "
+                 f"verdicts {quiet['kinds']}")
     lines.append("  reach on 200 background events/s:")
     for row in c["reach"]:
         lines.append(

@@ -28,9 +28,9 @@ MINUTE_NS = 60 * 10**9
 _TEMPLATE = "two peaks"
 
 
-def simulate(seconds: float, pulsed_rate: float, seed: int,
-             offset_us: float = 0.0) -> TimeBinnedMoments:
-    """Moments per minute of a night with ``pulsed_rate`` on ``BACKGROUND_RATE`` (per s)."""
+def simulate(seconds: float, pulsed_rate: float, seed: int, offset_us: float = 0.0,
+             background_rate: float = BACKGROUND_RATE) -> TimeBinnedMoments:
+    """Moments per minute of a night with ``pulsed_rate`` on ``background_rate`` (per s)."""
     rng = np.random.default_rng(seed)
     template = shape(_TEMPLATE)
     cdf = tabulated_cdf(_TEMPLATE, template, 0.0)
@@ -38,7 +38,7 @@ def simulate(seconds: float, pulsed_rate: float, seed: int,
     step = 1800.0  # half-hour blocks keep memory small
     for lo in np.arange(0.0, seconds, step):
         length = min(step, seconds - lo)
-        n_p, n_b = rng.poisson(pulsed_rate * length), rng.poisson(BACKGROUND_RATE * length)
+        n_p, n_b = rng.poisson(pulsed_rate * length), rng.poisson(background_rate * length)
         phases = np.concatenate([draw(cdf, n_p, rng) + offset_us * 1e-6 * NU,
                                  rng.random(n_b)])
         times = START_NS + np.round((lo + rng.uniform(0, length, phases.size)) * 1e9)
@@ -51,10 +51,13 @@ def _verdict(binned: TimeBinnedMoments):
     return verdict
 
 
-def clean_night(args: tuple[float, float, int]) -> dict:
-    """A clean night's verdict: status, kind, and whether it was decided."""
-    seconds, pulsed_rate, seed = args
-    verdict = _verdict(simulate(seconds, pulsed_rate, seed))
+def clean_night(args: tuple) -> dict:
+    """A clean night's verdict: status, kind, and whether it was decided. ``args``:
+    (seconds, pulsed rate, seed[, background rate]); a pulsed rate of 0 is a night of
+    noise alone."""
+    seconds, pulsed_rate, seed, *background = args
+    verdict = _verdict(simulate(seconds, pulsed_rate, seed,
+                                background_rate=background[0] if background else BACKGROUND_RATE))
     return {"hours": seconds / 3600.0, "pulsed_rate": pulsed_rate, "status": verdict.status,
             "kind": verdict.kind,
             "undecided": verdict.kind in ("no_signal", "insufficient_signal")}
