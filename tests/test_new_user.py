@@ -39,6 +39,9 @@ def scratch(tmp_path):
     expired = demo_config(tmp_path / "out", 5555, 5556).replace(
         data_file("lantern.toml"), str(tmp_path / "expired.toml"))
     (tmp_path / "expired-config.toml").write_text(expired)
+    moved = demo_config(tmp_path / "out", 5555, 5556).replace(
+        data_file("lantern.toml"), str(tmp_path / "moved.toml"))
+    (tmp_path / "moved-model.toml").write_text(moved)
     (tmp_path / "not-output").mkdir()
     (tmp_path / "not-output" / "notes.txt").write_text("hello\n")
     return tmp_path
@@ -90,6 +93,8 @@ MISTAKES = [
      ["energy_min", "500", "no unit"], 2),
     ("run with a misspelt key", ["run", "{tmp}/typo.toml"], ["window_minutes", "unknown field"],
      2),
+    ("run with a model file that was moved", ["run", "{tmp}/moved-model.toml"],
+     ["targets.", ".models = ", "moved.toml", "cannot read"], 2),
     ("check a file that does not exist", ["check", "{tmp}/nowhere.toml"], ["nowhere.toml"],
      2),
     ("check with a model that expired", ["check", "{tmp}/expired-config.toml", "--night",

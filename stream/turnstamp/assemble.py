@@ -28,7 +28,7 @@ from .core.spin import SpinModel
 from .core.tagger import TargetTagger
 from .core.targets import Recipe, TargetSetup
 from .core.timebase import NS_PER_S, ClockCorrection, LeapSecondTable, parse_instant
-from .errors import ConfigError
+from .errors import ConfigError, loaded
 from .files.bundled import bundled_leap_seconds, load_earth_orientation, open_ephemeris
 from .files.columns import to_numpy
 from .files.inputs import load_spin_model, load_template
@@ -246,6 +246,9 @@ def build_target(config: TargetConfig, table: CorrectionTable | None = None,
                  calculators: list[PhaseCalculator] | None = None) -> TargetSetup:
     """One target from its configuration, reading its model and template files."""
     return target_setup(
-        config.name, calculators or load_phase_calculators(config.models), config.recipes,
-        load_template(config.template) if config.template else None, config.region_radius_deg,
+        config.name, calculators or loaded(f"targets.{config.name}.models",
+                                           load_phase_calculators, config.models),
+        config.recipes,
+        loaded(f"targets.{config.name}.template", load_template, config.template)
+        if config.template else None, config.region_radius_deg,
         config.clock_check_recipe, table)

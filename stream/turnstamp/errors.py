@@ -19,6 +19,7 @@ from pathlib import Path
 
 __all__ = [
     "InputError",
+    "loaded",
     "ModelError",
     "ConfigError",
     "EventFileError",
@@ -39,6 +40,18 @@ class InputError(ValueError):
         self.value = value
         self.problem = problem
         super().__init__(message or f"{field} = {value!r}: {problem}")
+
+
+def loaded(field: str, load, path):
+    """``load(path)``; a file that is missing or unreadable is named by ``field`` (the
+    option or configuration key that gave it: ``--model``, ``targets.x.models``), not
+    by the loader's own word for a path."""
+    try:
+        return load(path)
+    except InputError as exc:
+        if exc.field in ("path", "config"):
+            raise type(exc)(field, exc.value, exc.problem) from None
+        raise
 
 
 class ModelError(InputError):

@@ -257,15 +257,16 @@ def _ephemeris(env, tt: tuple[int, int], found: Findings) -> None:
 
 def _target(target, tt: tuple[int, int], found: Findings) -> None:
     from ..core.spin import digit_warnings
+    from ..errors import loaded
     from ..files.inputs import load_spin_model, load_template
 
     found.lines.append(f"  {target.name}:")
     models = []
     for path in target.models:
         try:
-            models.append(load_spin_model(path))
+            models.append(loaded(f"targets.{target.name}.models", load_spin_model, path))
         except (ValueError, OSError) as exc:
-            found.problems.append(f"target {target.name}: model {path}: {exc}")
+            found.problems.append(f"target {target.name}: {exc}")  # names the file
     for model in models:
         found.lines.append("    " + _validity_line(model, tt))
         found.warnings.extend(digit_warnings(model))
@@ -275,12 +276,13 @@ def _target(target, tt: tuple[int, int], found: Findings) -> None:
         found.lines.append("    no template: no clock-chain check for this target")
     else:
         try:
-            template = load_template(target.template)
+            template = loaded(f"targets.{target.name}.template", load_template,
+                              target.template)
             recipe = target.clock_check_recipe or target.recipes[0].name
             found.lines.append(f"    template {template.name}: clock-chain check on recipe "
                                f"{recipe}")
         except (ValueError, OSError) as exc:
-            found.problems.append(f"target {target.name}: template {target.template}: {exc}")
+            found.problems.append(f"target {target.name}: {exc}")
     found.lines.append("    recipes: " + "; ".join(_recipe_text(r) for r in target.recipes))
 
 

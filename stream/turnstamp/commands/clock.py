@@ -84,10 +84,10 @@ def run(args) -> int:
     from ..archiveclock import check_archive, read_archive
     from ..core.clock.check import CheckSettings
     from ..core.timebase import NS_PER_S
-    from ..errors import InputError
+    from ..errors import InputError, loaded
     from ..files.inputs import load_spin_model, load_template
     from ..views.progress import progress
-    from .common import option_file, site_environment
+    from .common import site_environment
 
     if not (args.chunk_seconds >= 10 and args.chunk_seconds % 10 == 0):
         raise InputError("--chunk-seconds", args.chunk_seconds, "must be a multiple of 10 s")
@@ -97,8 +97,8 @@ def run(args) -> int:
     targets = _targets(args, present)
     for files in targets.values():  # each file checked now, named by its option
         for model in files.models:
-            option_file("--model", load_spin_model, model)
-        option_file("--template", load_template, files.template)
+            loaded("--model", load_spin_model, model)
+        loaded("--template", load_template, files.template)
     settings = CheckSettings(int(args.chunk_seconds * NS_PER_S), args.tolerance_cycles,
                              args.tolerance_us)
     env = site_environment(args.site)

@@ -11,14 +11,13 @@ from __future__ import annotations
 
 import argparse
 
-from ..errors import InputError
+from ..errors import InputError, loaded
 
 __all__ = [
     "HelpFormatter",
     "add_site_option",
     "add_table_cache_option",
     "site_environment",
-    "option_file",
     "utc_instant",
     "utc_text",
     "positive_seconds",
@@ -60,23 +59,12 @@ def add_table_cache_option(parser: argparse.ArgumentParser, default: str | None)
                         help=f"folder of cached barycentre tables ({where})")
 
 
-def option_file(option: str, load, path):
-    """``load(path)``; a file that is missing or unreadable is named by its option
-    (``--model = 'x.toml': cannot read``), not by a loader's own word for it."""
-    try:
-        return load(path)
-    except InputError as exc:
-        if exc.field in ("path", "config"):
-            raise InputError(option, exc.value, exc.problem) from None
-        raise
-
-
 def site_environment(path: str):
     """The ``Environment`` (site tables) of the ``--site`` file."""
     from ..assemble import Environment
     from ..config import load_site
 
-    return Environment.from_site(option_file("--site", load_site, path))
+    return Environment.from_site(loaded("--site", load_site, path))
 
 
 def utc_text(ns: int) -> str:
@@ -137,7 +125,7 @@ def event_file_job(args):
     from ..tagging.run import offline_target
     from ..tagging.times import TimeConvention
 
-    setup = offline_target([option_file("--model", load_spin_model, m) for m in args.model],
+    setup = offline_target([loaded("--model", load_spin_model, m) for m in args.model],
                            args.target)
     return (setup, site_environment(args.site), Scale(args.time_scale),
             TimeConvention(args.time_origin, args.time_unit))

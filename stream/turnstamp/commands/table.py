@@ -55,13 +55,14 @@ def run(args) -> int:
     from ..assemble import TableCache, phase_calculators_for, target_setup
     from ..config import BarycentreConfig
     from ..core.timebase import Scale, from_tt, to_tt
+    from ..errors import loaded
     from ..files.inputs import load_spin_model
     from ..views.progress import progress
-    from .common import option_file, site_environment, utc_text
+    from .common import site_environment, utc_text
 
     start_utc, stop_utc = _window(args)
     env = site_environment(args.site)
-    model = option_file("--model", load_spin_model, args.model)
+    model = loaded("--model", load_spin_model, args.model)
     setup = target_setup("table", phase_calculators_for([model]))
     (start, stop), _ = to_tt(np.array([start_utc, stop_utc]), Scale.UTC, env.leaps)
     cache = TableCache(Path(args.table_cache), env, BarycentreConfig())
