@@ -34,11 +34,11 @@ import numpy as np
 import zmq
 
 from ..core.timebase import NS_PER_S, parse_instant, unix_to_ns
-from ..demo import lantern_toml, site_toml
 from ..files.reader import END_OF_STREAM, read_stream, stream_files
 from ..files.schemas import OUTPUTS
 from ..wire.encode import encode_message
 from .crashcheck import check_folder
+from .service import bench_config
 
 __all__ = ["bench_crash", "missing_after_restart", "missing_reported"]
 
@@ -140,29 +140,12 @@ class _Sender:
         self.context.term()
 
 
-RECIPES = '[[targets.recipes]]\nname = "all"\n'
-
-
 def _config(directory: Path, intake: int, control: int) -> Path:
-    text = f"""
-[control]
-endpoint = "tcp://127.0.0.1:{control}"
-[intake]
-endpoints = ["tcp://127.0.0.1:{intake}"]
-{site_toml()}
-[barycentre]
-cover_from = "2026-12-02T00:00:00"
-cover_until = "2026-12-02T14:00:00"
-{lantern_toml(region_radius_deg=3.0, recipes=RECIPES)}
-[output]
-directory = "{directory / 'out'}"
-checkpoint_every_s = 0.5
-rotate_minutes = 0.05
-rotate_megabytes = 32.0
-"""
-    path = directory / "crash.toml"
-    path.write_text(text)
-    return path
+    """Frequent checkpoints and rotations: a kill lands in every phase of the work."""
+    return bench_config(directory, "crash", intake=intake, control=control,
+                        recipes='[[targets.recipes]]\nname = "all"\n',
+                        output="checkpoint_every_s = 0.5\nrotate_minutes = 0.05\n"
+                               "rotate_megabytes = 32.0\n")
 
 
 class _Folder:

@@ -34,7 +34,7 @@ import zmq
 from ..core.timebase import parse_instant
 from ..files.reader import read_stream
 from ..wire.encode import encode_message
-from .service import _config, _ports
+from .service import _ports, bench_config
 
 __all__ = ["bench_fuzz", "fuzz_lines"]
 
@@ -179,7 +179,7 @@ def _round(count: int, seed: int) -> dict:
     plan = _plan(count, rng, junk_first=int(rng.integers(1, 50)))
     with tempfile.TemporaryDirectory(prefix="turnstamp-fuzz-") as tmp:
         intake, control = _ports(2)
-        config = _config(Path(tmp), intake, control)
+        config = bench_config(Path(tmp), "bench", intake=intake, control=control)
         process = subprocess.Popen([sys.executable, "-m", "turnstamp", "run", str(config)],
                                    stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
         out = Path(tmp) / "out"

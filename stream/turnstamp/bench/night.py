@@ -18,30 +18,13 @@ from pathlib import Path
 import numpy as np
 
 from ..core.timebase import NS_PER_S, parse_instant
-from ..demo import lantern_toml, site_toml
 from ..wire.encode import encode_message
+from .service import bench_config
 
 __all__ = ["bench_night", "night_lines"]
 
 BATCH = 10_000
 LATE_UTC = "2026-12-02T11:30:00"  # the measured messages: late in the night
-RECIPES = '[[targets.recipes]]\nname = "all"\n[[targets.recipes]]\nname = "weighted"\n' \
-    "use_weights = true\n"
-
-
-def _config(directory: Path) -> Path:
-    text = f"""
-{site_toml()}
-[barycentre]
-cover_from = "2026-12-01T23:00:00"
-cover_until = "2026-12-02T14:00:00"
-{lantern_toml(region_radius_deg=3.0, recipes=RECIPES)}
-[output]
-directory = "{directory / 'out'}"
-"""
-    path = directory / "night.toml"
-    path.write_text(text)
-    return path
 
 
 def _prefill(service, hours: float, rate_hz: float = 100.0) -> int:
@@ -79,7 +62,8 @@ def _run(hours: float, seconds: float) -> dict:
     from ..service.loop import Service
 
     with tempfile.TemporaryDirectory(prefix="turnstamp-night-") as tmp:
-        service = Service(load_config(_config(Path(tmp))))
+        service = Service(load_config(bench_config(Path(tmp), "night",
+                                                   cover_from="2026-12-01T23:00:00")))
         prefilled = _prefill(service, hours) if hours else 0
         rng = np.random.default_rng(5)
         # one round of the periodic work first: in a real night the clock check's

@@ -25,7 +25,7 @@ from ..demo import lantern_toml, site_toml
 from ..files.reader import read_stream
 from ..wire.encode import encode_message
 
-__all__ = ["bench_service"]
+__all__ = ["bench_service", "bench_config", "TWO_RECIPES"]
 
 BATCH = 10_000
 NIGHT_UTC = "2026-12-02T03:00:00"
@@ -53,23 +53,29 @@ def _messages(total: int, source: str = "bench", rate: float = 1e6) -> list[list
     return out
 
 
-def _config(directory: Path, intake: int, control: int) -> Path:
-    recipes = '[[targets.recipes]]\nname = "all"\n[[targets.recipes]]\nname = "weighted"\n' \
-        "use_weights = true\n"
-    text = f"""
-[intake]
-endpoints = ["tcp://127.0.0.1:{intake}"]
+TWO_RECIPES = '[[targets.recipes]]\nname = "all"\n[[targets.recipes]]\nname = "weighted"\n' \
+    "use_weights = true\n"
+
+
+def bench_config(directory: Path, name: str, *, intake: int | None = None,
+                 control: int | None = None, recipes: str = TWO_RECIPES,
+                 cover_from: str = "2026-12-02T00:00:00", output: str = "") -> Path:
+    """A service configuration for the benchmarks: the demo site and pulsar (region 3°),
+    a barycentre table over the bench night, outputs in ``directory/out``; loopback
+    intake and control ports when given, extra ``[output]`` lines in ``output``."""
+    sockets = "" if intake is None else f'[intake]\nendpoints = ["tcp://127.0.0.1:{intake}"]\n'
+    if control is not None:
+        sockets += f'[control]\nendpoint = "tcp://127.0.0.1:{control}"\n'
+    text = f"""{sockets}
 {site_toml()}
 [barycentre]
-cover_from = "2026-12-02T00:00:00"
+cover_from = "{cover_from}"
 cover_until = "2026-12-02T14:00:00"
 {lantern_toml(region_radius_deg=3.0, recipes=recipes)}
 [output]
 directory = "{directory / 'out'}"
-[control]
-endpoint = "tcp://127.0.0.1:{control}"
-"""
-    path = directory / "bench.toml"
+{output}"""
+    path = directory / f"{name}.toml"
     path.write_text(text)
     return path
 
@@ -116,7 +122,7 @@ class _Service:
     def __init__(self, directory: Path):
         intake, control = _ports(2)
         self.intake, self.control_endpoint = intake, f"tcp://127.0.0.1:{control}"
-        config = _config(directory, intake, control)
+        config = bench_config(directory, "bench", intake=intake, control=control)
         self.process = subprocess.Popen([sys.executable, "-m", "turnstamp", "run", str(config)],
                                         stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
         self.context = zmq.Context()
