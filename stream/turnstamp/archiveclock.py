@@ -5,7 +5,9 @@ service output folder of ``archive-*.arrows`` files) holds per event the site TT
 instant and the barycentric correction applied. Each target's events of the chosen
 recipe are folded again with the given spin models (so a newer model can be tried on
 an old night), the moments binned by site time as the service does, and the same
-check runs (:func:`turnstamp.core.clock.check.check_target`): chunks, the whole
+check runs (:func:`turnstamp.core.clock.check.check_target`), with one difference:
+the phases are at hand, so each offset is fitted to the events themselves
+(:mod:`turnstamp.core.eventfit`) rather than to their 20 harmonics. Chunks, the whole
 night, the diagnosis with the apparent spin from the site's barycentre tables, and
 a refold of the archive's own corrections under alternative hypotheses. Several
 targets are then judged together (:mod:`turnstamp.core.clock.joint`).
@@ -145,25 +147,40 @@ def _events(table: pa.Table, name: str, bit: int):
             rows["weight"].to_numpy()[chosen][order])
 
 
-def _binned(setup: TargetSetup, tt, correction, weight, weighted: bool,
-            advance: Callable[[int], None] | None) -> TimeBinnedMoments:
-    """Moments by site time of the events folded with the target's models (events
-    outside every model's validity left out, as the service leaves them out)."""
-    binned = TimeBinnedMoments(INTERVAL_NS)
-    tagger = setup.tagger
-    step = 1 << 20
-    for lo in range(0, tt.size, step):
-        part = slice(lo, lo + step)
-        index = tagger.choose_models(tt[part])
-        for i in np.unique(index):
-            rows = index == i
-            _, phase, flags = tagger.calculators[i].phase(tt[part][rows], correction[part][rows])
-            usable = (flags & Quality.OUTSIDE_MODEL_VALIDITY) == 0
-            binned.update(tt[part][rows][usable], phase[usable],
+class _Folded:
+    """The events of one target folded with its models: moments by site time, and the
+    phases themselves by time range (``EventPhases``), so each offset is fitted to them."""
+
+    def __init__(self, setup: TargetSetup, tt, correction, weight, weighted: bool,
+                 advance: Callable[[int], None] | None):
+        self.binned = TimeBinnedMoments(INTERVAL_NS)
+        tagger, kept = setup.tagger, []
+        step = 1 << 20
+        for lo in range(0, tt.size, step):
+            part = slice(lo, lo + step)
+            index = tagger.choose_models(tt[part])
+            for i in np.unique(index):
+                rows = index == i
+                _, phase, flags = tagger.calculators[i].phase(tt[part][rows],
+                                                              correction[part][rows])
+                # events outside every model's validity are left out, as the service does
+                usable = (flags & Quality.OUTSIDE_MODEL_VALIDITY) == 0
+                chosen = (tt[part][rows][usable], phase[usable],
                           weight[part][rows][usable] if weighted else None)
-        if advance is not None:
-            advance(int(tt[part].size))
-    return binned
+                self.binned.update(*chosen)
+                kept.append(chosen)
+            if advance is not None:
+                advance(int(tt[part].size))
+        self.tt = np.concatenate([k[0] for k in kept]) if kept else np.zeros(0, np.int64)
+        order = np.argsort(self.tt, kind="stable")
+        self.tt = self.tt[order]
+        self.phase = np.concatenate([k[1] for k in kept])[order] if kept else np.zeros(0)
+        self.weight = np.concatenate([k[2] for k in kept])[order] if kept and weighted \
+            else None
+
+    def __call__(self, start_ns: int, end_ns: int):
+        lo, hi = np.searchsorted(self.tt, [start_ns, end_ns], side="left")
+        return self.phase[lo:hi], None if self.weight is None else self.weight[lo:hi]
 
 
 def check_archive(path: Path, targets: dict[str, TargetFiles], env: Environment, *,
@@ -212,7 +229,7 @@ def check_archive(path: Path, targets: dict[str, TargetFiles], env: Environment,
             raise InputError("archive", str(path), f"no events of {name} in recipe {chosen}")
         setup = _setup(name, files, env, table_cache, tt)
         use = bool(np.any(weight != 1.0)) if weighted is None else weighted
-        binned = _binned(setup, tt, correction, weight, use, advance)
+        folded = _Folded(setup, tt, correction, weight, use, advance)
         spins[name] = spin = SiteSpin(setup.tagger)
         recent = slice(max(0, tt.size - REFOLD_EVENTS), None)
 
@@ -222,8 +239,8 @@ def check_archive(path: Path, targets: dict[str, TargetFiles], env: Environment,
                                  PhaseMoments().bins), int(tt.size)
 
         assert setup.template is not None
-        verdict, chunks = check_target(binned, setup.template, spin, settings, refold=refold,
-                                       time_text=text)
+        verdict, chunks = check_target(folded.binned, setup.template, spin, settings,
+                                       refold=refold, time_text=text, events=folded)
         results.append((name, chosen, verdict, chunks))
     series = [s for name, _, v, c in results
               if (s := target_series(name, v, c, spins[name])) is not None]

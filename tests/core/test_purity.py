@@ -9,7 +9,7 @@ CORE_MODULES = [
     "clock.check", "clock.chunks", "clock.diagnose", "clock.joint", "clock.mistakes",
     "clock.numbers", "clock.rating", "clock.robust", "clock.series", "clock.smear",
     "clock.verdict", "clock.wobble", "clock.wording", "correctiontable", "cycles", "earth",
-    "binnedarrays", "emission", "flags", "harmonicsums", "intervalsegments", "kepler",
+    "binnedarrays", "emission", "eventfit", "flags", "harmonicsums", "intervalsegments", "kepler",
     "moments", "momentstate", "orbit", "peaks",
     "periodicity", "phase", "pipeline", "profile", "readout", "refold", "significance", "simulate",
     "spin", "stacking", "tagger", "targets", "template", "templatefit", "templatelikelihood",

@@ -50,7 +50,7 @@ from .cycles import wrap_cycles
 from .templatenoise import moment_covariance
 
 __all__ = ["LikelihoodFit", "likelihood_offset", "bracketed_root", "AMBIGUITY_DELTA_CHI2",
-           "CALIBRATION"]
+           "CALIBRATION", "widening"]
 
 AMBIGUITY_DELTA_CHI2 = 4.0
 """A second minimum of Q closer than this to the best makes the fit ambiguous."""
@@ -268,7 +268,7 @@ def _bound(objective: _Objective, shift: float, best: float, direction: float,
                           tolerance=1e-12)
 
 
-def _widening(z: float) -> float:
+def widening(z: float) -> float:
     """sqrt(z²/(z² − κ)), capped: the near-threshold calibration of the errors."""
     if not z > 0:
         return _MAX_WIDENING
@@ -313,7 +313,7 @@ def likelihood_offset(data: np.ndarray, sum_w: float, sum_w2: float, extended: n
     curvature_sigma *= math.sqrt(max(_sandwich_factor(objective, extended, updated), 1.0))
     amplitude_sigma = sum_w / math.sqrt(objective.tt) if objective.tt > 0 else math.inf
     amplitude = sum_w * max(projection, 0.0) / objective.tt if objective.tt > 0 else 0.0
-    factor = _widening(amplitude / amplitude_sigma if amplitude_sigma > 0 else 0.0)
+    factor = widening(amplitude / amplitude_sigma if amplitude_sigma > 0 else 0.0)
     low = _bound(objective, shift, best, -1.0, curvature_sigma, 1.0)
     high = _bound(objective, shift, best, +1.0, curvature_sigma, 1.0)
     sigma = min(max(curvature_sigma, 0.5 * (low + high)) * factor, 0.5)

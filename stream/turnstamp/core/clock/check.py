@@ -5,7 +5,8 @@ Theory of operation
 ``check_target`` runs the check on a target's time-binned moments
 (:class:`~turnstamp.core.timebinned.TimeBinnedMoments` of its clock recipe):
 
-1. chunks of fixed length (:mod:`.chunks`) and the whole-night fit;
+1. chunks of fixed length (:mod:`.chunks`) and the whole-night fit (on the events'
+   phases where they are kept, as in an archive; else on the moments);
 2. a faint source whose fixed chunks mostly miss the pulse (fewer than half detect
    it: those that do are then mostly upward fluctuations, timed worse than their σ
    says) is cut instead into chunks grown until each detects it (H ≥ 36, ≈ 5σ):
@@ -29,6 +30,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from ..eventfit import refine_with_events
 from ..moments import PhaseMoments
 from ..periodicity import TestResult, z2_test
 from ..refold import refolded_verdict
@@ -37,7 +39,7 @@ from ..template import PulseTemplate
 from ..templatefit import OffsetFit, fit_offset
 from ..timebinned import TimeBinnedMoments
 from .apparent import SpinView
-from .chunks import ChunkOffset, chunk_offsets
+from .chunks import ChunkOffset, EventPhases, chunk_offsets
 from .diagnose import diagnose
 from .series import chi2_log_sf
 from .verdict import SIGNIFICANT_SIGMA, ClockVerdict
@@ -65,7 +67,8 @@ class CheckSettings:
 def check_target(binned: TimeBinnedMoments, template: PulseTemplate, spin: SpinView,
                  settings: CheckSettings = CheckSettings(), *, refold: Refold | None = None,
                  time_text: Callable[[int], str] | None = None,
-                 cache: dict | None = None) -> tuple[ClockVerdict, list[ChunkOffset]]:
+                 cache: dict | None = None,
+                 events: EventPhases | None = None) -> tuple[ClockVerdict, list[ChunkOffset]]:
     """The clock verdict of one target and the chunks it was judged on.
 
     Parameters
@@ -85,14 +88,22 @@ def check_target(binned: TimeBinnedMoments, template: PulseTemplate, spin: SpinV
         Instant (ns TT) -> text for the verdict's lines (UTC calendar times).
     cache : dict, optional
         Chunk fits kept between calls (see :func:`.chunks.chunk_offsets`).
+    events : EventPhases, optional
+        The events' phases by time range, where they are kept (an archive): every
+        offset, the night's too, is then fitted to them (:mod:`turnstamp.core.eventfit`).
     """
     chunks = chunk_offsets(binned, template, chunk_ns=settings.chunk_ns, cache=cache,
-                           latest_ns=binned.latest_ns)
+                           latest_ns=binned.latest_ns, events=events)
     total = binned.total()
     night = fit_offset(total, template) if total.sum_w > 0 else None
+    if night is not None and events is not None:
+        starts = [start for start, _ in binned.intervals()]
+        phases, weights = events(min(starts), max(starts) + binned.interval_ns)
+        night = refine_with_events(night, phases, template, weights)
     if night is not None and night.detected \
             and sum(c.detected for c in chunks) < _DETECTED_FRACTION * len(chunks):
-        chunks = chunk_offsets(binned, template, chunk_ns=None, latest_ns=binned.latest_ns)
+        chunks = chunk_offsets(binned, template, chunk_ns=None, latest_ns=binned.latest_ns,
+                               events=events)
     ends = np.array([chunks[0].mid_ns, chunks[-1].mid_ns] if chunks
                     else [binned.latest_ns or 0], dtype=np.int64)
     nu = float(np.mean(spin.frequency_hz(ends)))

@@ -11,16 +11,18 @@ The numerical core only: no I/O, no clock.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 
+from ..eventfit import refine_with_events
 from ..moments import PhaseMoments
 from ..periodicity import h_test
 from ..template import PulseTemplate
 from ..templatefit import fit_offset
 
-__all__ = ["DEFAULT_MIN_SIGNAL", "ChunkOffset", "chunk_offsets"]
+__all__ = ["DEFAULT_MIN_SIGNAL", "ChunkOffset", "EventPhases", "chunk_offsets"]
 
 DEFAULT_MIN_SIGNAL = 36.0
 """H-test value that closes a chunk (≈ 5σ one-sided with P = exp(−0.4 H), de Jager &
@@ -28,6 +30,10 @@ Büsching 2010)."""
 _CACHE_LIMIT = 100_000  # fits kept between calls before the cache starts afresh
 
 Interval = tuple[int, PhaseMoments]
+EventPhases = Callable[[int, int], tuple[np.ndarray, np.ndarray | None]]
+"""(start_ns, end_ns) -> phases (cycles) and weights (None: all 1) of the events in
+[start, end), on the intervals' time scale: where the events are kept (an archive),
+each fit is refined on them (:mod:`turnstamp.core.eventfit`)."""
 
 
 @dataclass(frozen=True)
@@ -88,6 +94,7 @@ def chunk_offsets(
     harmonics: int | None = None,
     cache: dict | None = None,
     latest_ns: int | None = None,
+    events: EventPhases | None = None,
 ) -> list[ChunkOffset]:
     """Group consecutive time intervals into chunks and fit the template to each.
 
@@ -119,6 +126,9 @@ def chunk_offsets(
         The latest event time (ns): the interval holding it is still filling, so its
         events lie between its start and this instant (their mean time is nearer its
         start than its midpoint).
+    events : EventPhases, optional
+        The events of a time range, where they are kept: each chunk's fit is then
+        refined on its events' phases (the moments fit still detects and starts it).
 
     Returns
     -------
@@ -141,7 +151,7 @@ def chunk_offsets(
         groups = _groups_by_time(items, starts, int(chunk_ns))
     else:
         groups = _groups_by_signal(items, template, min_signal, target_sigma_cycles, harmonics)
-    return [_fit_chunk(group, template, interval_ns, harmonics, cache, latest_ns)
+    return [_fit_chunk(group, template, interval_ns, harmonics, cache, latest_ns, events)
             for group in groups]
 
 
@@ -195,20 +205,24 @@ def _chunk_is_done(total: PhaseMoments, template: PulseTemplate, min_signal: flo
 
 def _fit_chunk(group: list[Interval], template: PulseTemplate, interval_ns: int,
                harmonics: int | None, cache: dict | None,
-               latest_ns: int | None = None) -> ChunkOffset:
+               latest_ns: int | None = None, events: EventPhases | None = None) -> ChunkOffset:
     """The template offset of one chunk (from ``cache`` when its data did not change)."""
     total = group[0][1].copy()
     for _, m in group[1:]:
         total += m
     first = group[0][0]
     key = (first, int(group[-1][0]), total.count, total.sum_w, total.sum_w2,
-           float(total.cos_sums[0]), id(template), harmonics)
+           float(total.cos_sums[0]), id(template), harmonics, events is None)
     if cache is not None and key in cache:
         return cache[key]
     fit = fit_offset(total, template, harmonics)
+    end = int(group[-1][0] + interval_ns)
+    if events is not None:
+        phases, weights = events(int(first), end)
+        fit = refine_with_events(fit, phases, template, weights)
     chunk = ChunkOffset(
         start_ns=int(first),
-        end_ns=int(group[-1][0] + interval_ns),
+        end_ns=end,
         mid_ns=int(_weighted_middle(group, interval_ns, latest_ns)),
         shift_cycles=fit.shift_cycles,
         sigma_cycles=fit.sigma_cycles,
