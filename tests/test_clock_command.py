@@ -53,6 +53,7 @@ def test_clock_on_an_offline_tagged_archive(tmp_path, capsys, demo_env, lantern,
     assert row["size"]["unit"] == "µs"
     assert row["size"]["value"] == pytest.approx(200.0, abs=5 * row["size"]["sigma"])
     assert row["mistake_s"] is None and data["clock"] is None
+    assert row["offsets_fitted_to"] == "event phases"  # not their 20 harmonics
     arrivals = [c["arrival_tdb_ns"] for c in row["chunks"] if c["detected"]]
     assert arrivals and all(isinstance(t, int) for t in arrivals)
     # in words, with UTC calendar times

@@ -65,8 +65,9 @@ class ArchiveCheck:
     joint: JointVerdict | None
 
     def to_dict(self) -> dict:
-        """JSON: ``targets`` (status, kind, size with σ and unit, named mistake in s) and
-        ``clock`` (what all targets share, with two or more)."""
+        """JSON: ``targets`` (status, kind, size with σ and unit, named mistake in s, what
+        the offsets were fitted to) and ``clock`` (what all targets share, with two or
+        more)."""
         rows = []
         for target, recipe, verdict, chunks in self.results:
             rows.append({
@@ -76,6 +77,7 @@ class ArchiveCheck:
                                                "unit": verdict.size_unit},
                 "mistake_s": verdict.mistake_s, "attribution": verdict.attribution,
                 "minutes_needed": verdict.minutes_needed, "lines": verdict.lines,
+                "offsets_fitted_to": "event phases",
                 "chunks": [{"start_tt_ns": c.start_ns, "end_tt_ns": c.end_ns,
                             "shift_cycles": _number(c.shift_cycles),
                             "sigma_cycles": _number(c.sigma_cycles),
