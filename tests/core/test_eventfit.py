@@ -149,3 +149,19 @@ def test_chunks_are_fitted_to_their_events_where_they_are_kept():
         assert event_fit.shift_cycles == expected.shift_cycles
         assert event_fit.sigma_cycles == expected.sigma_cycles
         assert moments_fit.shift_cycles != event_fit.shift_cycles
+
+
+def test_a_whole_night_is_fitted_by_cells_of_phase_to_the_same_maximum(monkeypatch):
+    import turnstamp.core.eventfit as eventfit
+
+    rng = np.random.default_rng(12)
+    phases = draw(400_000, 0.9, -0.21, rng)
+    weights = rng.uniform(0.2, 1.0, phases.size)
+    for w in (None, weights):
+        start = fit_offset(PhaseMoments().update(phases, w), TEMPLATE)
+        cells = refine_with_events(start, phases, TEMPLATE, w)
+        monkeypatch.setattr(eventfit, "COMPACT_ABOVE", phases.size)
+        every = refine_with_events(start, phases, TEMPLATE, w)
+        monkeypatch.undo()
+        assert abs(cells.shift_cycles - every.shift_cycles) < 1e-3 * every.sigma_cycles
+        assert cells.sigma_cycles == pytest.approx(every.sigma_cycles, rel=1e-3)
