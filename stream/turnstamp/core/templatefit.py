@@ -98,8 +98,9 @@ class OffsetFit:
         P_k and S_k, k = 1..m (kept for profile-broadening checks).
     template : PulseTemplate
         The template fitted (for covariances beyond k = m).
-    method : {"likelihood", "correlation"}
-        The estimator used.
+    method : {"likelihood", "correlation", "events"}
+        The estimator used ("events": refined on the events' own phases,
+        :func:`turnstamp.core.eventfit.refine_with_events`).
     curvature_sigma_cycles : float
         σ from the curvature alone (observed information), before the near-threshold
         calibration; equal to ``sigma_cycles`` for the correlation.
