@@ -46,15 +46,17 @@ def test_a_cache_that_cannot_be_written_only_costs_the_parse(tmp_path, monkeypat
     assert leaps.tai_minus_utc_s[-1] == 37  # TAI - UTC since 2017 (IERS Bulletin C 52)
 
 
-def test_tag_starts_without_astropy_scipy_or_zmq(cache, tmp_path, demo_site_file):
+@pytest.mark.parametrize("ids", [np.uint64, np.int64])
+def test_tag_starts_without_astropy_scipy_or_zmq(cache, tmp_path, demo_site_file, ids):
     # nor pandas, which pyarrow imports on its first array built from numpy or a
     # list (0.5 s), nor pyarrow.compute: tag builds and reads its columns from buffers
+    # (signed ids too, whose sign is checked on the buffer)
     from turnstamp.core.timebase import NS_PER_S, parse_instant
     from turnstamp.demo import data_file
 
     times = parse_instant("2026-12-02T02:00:00") + np.arange(100) * NS_PER_S
     events = tmp_path / "events.arrow"
-    table = pa.table({"event_id": np.arange(100, dtype=np.uint64), "time_ns": times})
+    table = pa.table({"event_id": np.arange(100, dtype=ids), "time_ns": times})
     with pa.OSFile(str(events), "wb") as sink, pa.ipc.new_file(sink, table.schema) as w:
         w.write_table(table)
     code = ("import sys\n"

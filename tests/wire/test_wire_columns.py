@@ -119,9 +119,10 @@ def test_wrong_column_types_are_refused(name, kind):
 
 
 @pytest.mark.parametrize("name", ["event_id", "telescope_mask"])
-def test_negative_values_in_unsigned_columns_are_refused(name):
+@pytest.mark.parametrize("middle", [None, 5])  # with nulls, and without (read from the buffer)
+def test_negative_values_in_unsigned_columns_are_refused(name, middle):
     columns = {"event_id": pa.array([1, 2, 3], pa.int32()), "time_ns": pa.array([1, 2, 3]),
-               name: pa.array([4, None, -9], pa.int32())}
+               name: pa.array([4, middle, -9], pa.int32())}
     error = refusal([header_frame(), body_frame(columns)], RejectReason.BAD_SCHEMA)
     assert name in error.detail and "-9" in error.detail and "row 2" in error.detail
 

@@ -138,25 +138,44 @@ def column_to_numpy(name: str, column: pa.Array, context: MessageContext) -> np.
         return result
     if kind == "int" and rule.arrow_type == pa.uint64():
         _refuse_negative(name, column, context)
+    # Integers to float64 round beyond 2**53, deliberately; every other cast is exact.
+    rounding = kind in ("int", "uint") and rule.arrow_type == pa.float64()
+    if column.type != rule.arrow_type and column.null_count == 0 \
+            and kind in ("int", "uint", "float"):
+        values = to_numpy(column)  # numpy casts what is exact (a quick start: no compute)
+        if rounding or np.can_cast(values.dtype, rule.dtype, "safe") \
+                or (kind == "int" and rule.arrow_type == pa.uint64()):  # none negative
+            return _read_only(values.astype(rule.dtype))
     if column.type != rule.arrow_type:
-        # Integers to float64 round beyond 2**53, deliberately; every other cast is exact.
-        rounding = kind in ("int", "uint") and rule.arrow_type == pa.float64()
         column = column.cast(rule.arrow_type, safe=not rounding)
     if column.null_count:
         column = column.fill_null(pa.scalar(rule.fill, rule.arrow_type))
     return to_numpy(column)
 
 
-def _refuse_negative(name: str, column: pa.Array, context: MessageContext) -> None:
-    import pyarrow.compute as pc  # only here: a quick start for event files of uint64 ids
+def _read_only(values: np.ndarray) -> np.ndarray:
+    values.flags.writeable = False
+    return values
 
-    low = pc.min(column).as_py()
-    if low is not None and low < 0:
+
+def _refuse_negative(name: str, column: pa.Array, context: MessageContext) -> None:
+    if len(column) == 0:
+        return
+    if column.null_count == 0:  # the usual case, read from the buffer: a quick start
+        values = to_numpy(column)
+        if values.min() >= 0:
+            return
+    else:
+        import pyarrow.compute as pc  # only here, for a column with nulls
+
+        low = pc.min(column).as_py()
+        if low is None or low >= 0:
+            return
         values = column.fill_null(0).to_numpy(zero_copy_only=False)
-        row = int(np.flatnonzero(values < 0)[0])
-        raise context.refuse(RejectReason.BAD_SCHEMA,
-                             f"{name} must be >= 0 to fit uint64, got {int(values[row])} "
-                             f"in row {row} ({column.type} column)")
+    row = int(np.flatnonzero(values < 0)[0])
+    raise context.refuse(RejectReason.BAD_SCHEMA,
+                         f"{name} must be >= 0 to fit uint64, got {int(values[row])} "
+                         f"in row {row} ({column.type} column)")
 
 
 def event_batch(record: pa.RecordBatch | None, schema: pa.Schema, positions: dict[str, int],
