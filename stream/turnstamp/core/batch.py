@@ -8,6 +8,7 @@ Missing values arrive as sentinels: ``MISSING_TIME`` in ``time_ns``,
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, fields, replace
 from enum import IntEnum
 
@@ -125,6 +126,26 @@ def describe_rejects(codes: np.ndarray) -> tuple[list[str], list[str]]:
     return [reason.value for reason, _ in described], [detail for _, detail in described]
 
 
+_VALUE_LIMITS = (
+    # code, {column: (lowest, highest)}: a value must be finite and within
+    (RejectCode.BAD_ENERGY, {"energy_kev": (0.0, math.inf)}),
+    (RejectCode.BAD_DIRECTION, {"ra_deg": (-math.inf, math.inf), "dec_deg": (-90.0, 90.0)}),
+    (RejectCode.BAD_SCORE, {"score": (-math.inf, math.inf)}),
+    (RejectCode.BAD_WEIGHT, {"weight": (0.0, math.inf)}),
+)
+
+
+def _any_outside(values: np.ndarray, low: float, high: float) -> bool:
+    """Some value not finite or outside [low, high]: two reductions (NaN anywhere
+    makes both NaN), so the usual clean batch builds no per-event mask."""
+    lo, hi = values.min(), values.max()
+    return not (low <= lo and hi <= high and math.isfinite(lo) and math.isfinite(hi))
+
+
+def _outside(values: np.ndarray, low: float, high: float) -> np.ndarray:
+    return ~((values >= low) & (values <= high) & np.isfinite(values))
+
+
 def check_values(batch: EventBatch, earliest_ns: int, latest_ns: int,
                  checked: frozenset[str] | None = None) -> np.ndarray:
     """Per-event value checks: uint8 ``RejectCode`` values, 0 = accepted (the first
@@ -142,9 +163,11 @@ def check_values(batch: EventBatch, earliest_ns: int, latest_ns: int,
     """
     n = len(batch)
     codes = np.zeros(n, np.uint8)
+    if n == 0:
+        return codes
 
     def refuse(mask, code: RejectCode):
-        if mask.any():  # the usual batch refuses nothing: one pass per check
+        if mask.any():
             np.copyto(codes, np.uint8(code), where=mask & (codes == 0))
 
     def present(*names) -> bool:
@@ -152,19 +175,18 @@ def check_values(batch: EventBatch, earliest_ns: int, latest_ns: int,
                    for name in names)
 
     time = batch.time_ns
-    refuse(batch.event_id == MISSING_ID, RejectCode.MISSING_EVENT_ID)
-    refuse(time == MISSING_TIME, RejectCode.MISSING_TIME)
-    if n and (time.min() < earliest_ns or time.max() > latest_ns):
+    if batch.event_id.max() == MISSING_ID:
+        refuse(batch.event_id == MISSING_ID, RejectCode.MISSING_EVENT_ID)
+    earliest, latest = time.min(), time.max()
+    if earliest == MISSING_TIME:
+        refuse(time == MISSING_TIME, RejectCode.MISSING_TIME)
+    if earliest < earliest_ns or latest > latest_ns:
         refuse((time < earliest_ns) | (time > latest_ns), RejectCode.IMPLAUSIBLE_TIME)
-    if present("energy_kev"):
-        refuse(~(batch.energy_kev >= 0) | ~np.isfinite(batch.energy_kev), RejectCode.BAD_ENERGY)
-    if present("ra_deg", "dec_deg"):
-        refuse(~np.isfinite(batch.ra_deg) | ~(np.abs(batch.dec_deg) <= 90),
-               RejectCode.BAD_DIRECTION)
-    if present("score"):
-        refuse(~np.isfinite(batch.score), RejectCode.BAD_SCORE)
-    if present("weight"):
-        refuse(~(batch.weight >= 0) | ~np.isfinite(batch.weight), RejectCode.BAD_WEIGHT)
+    for code, limits in _VALUE_LIMITS:
+        if present(*limits):
+            columns = [(getattr(batch, name), *limits[name]) for name in limits]
+            if any(_any_outside(*column) for column in columns):
+                refuse(np.logical_or.reduce([_outside(*column) for column in columns]), code)
     if n > 1 and not np.all(batch.event_id[1:] > batch.event_id[:-1]):  # sorted: no repeats
         order = np.argsort(batch.event_id, kind="stable")
         same = batch.event_id[order][1:] == batch.event_id[order][:-1]

@@ -140,9 +140,12 @@ def _selected(target: TargetSetup, batch: EventBatch, valid: np.ndarray):
     their distance from the target (None without directions)."""
     cos_distance = None
     if batch.ra_deg is not None and batch.dec_deg is not None:
-        cos_distance = np.full(len(batch), -2.0)  # below any cut
-        cos_distance[valid] = cos_angular_distance(batch.ra_deg[valid], batch.dec_deg[valid],
-                                                   target.position)
+        if valid.all():  # the usual batch: no copies
+            cos_distance = cos_angular_distance(batch.ra_deg, batch.dec_deg, target.position)
+        else:
+            cos_distance = np.full(len(batch), -2.0)  # below any cut
+            cos_distance[valid] = cos_angular_distance(batch.ra_deg[valid],
+                                                       batch.dec_deg[valid], target.position)
     rows = valid
     if target.region_radius_deg is not None and cos_distance is not None:
         rows = valid & (cos_distance >= np.cos(np.radians(target.region_radius_deg)))

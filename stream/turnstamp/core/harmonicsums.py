@@ -39,7 +39,7 @@ from typing import NamedTuple
 import numpy as np
 
 __all__ = ["CHUNK", "TABLE_SIZE", "SegmentSums", "segment_sums", "shared_segment_sums",
-           "reduced_phases"]
+           "reduced_phases", "exp_two_pi_i"]
 
 CHUNK = 8192
 """Events per pass: the (harmonics x CHUNK) complex block stays in cache."""
@@ -86,10 +86,11 @@ class _Scratch:
         self.real = [np.empty(CHUNK) for _ in range(4)]
 
 
-def _scratch(harmonics: int) -> _Scratch:
+def _scratch(harmonics: int | None) -> _Scratch:
+    """This thread's work arrays (None: any number of harmonics will do)."""
     cached = getattr(_LOCAL, "scratch", None)
-    if cached is None or cached.block.shape[0] != harmonics:
-        cached = _LOCAL.scratch = _Scratch(harmonics)
+    if cached is None or harmonics not in (None, cached.block.shape[0]):
+        cached = _LOCAL.scratch = _Scratch(harmonics or 1)
     return cached
 
 
@@ -130,6 +131,17 @@ def _unit_vectors(phi: np.ndarray, s: _Scratch) -> np.ndarray:
     np.take(_TABLE, index, out=unit)
     np.multiply(unit, taylor, out=unit)
     return unit
+
+
+def exp_two_pi_i(turns: np.ndarray) -> np.ndarray:
+    """exp(2πi·turns) for finite angles in turns, by the same table and series
+    (a few 1e-16; a third of the cost of ``np.cos`` plus ``np.sin``)."""
+    turns = reduced_phases(np.asarray(turns, dtype=np.float64))
+    out = np.empty(turns.size, dtype=np.complex128)
+    s = _scratch(None)
+    for lo in range(0, turns.size, CHUNK):
+        out[lo : lo + CHUNK] = _unit_vectors(turns[lo : lo + CHUNK], s)
+    return out
 
 
 def _harmonic_block(unit: np.ndarray, w: np.ndarray | None, s: _Scratch) -> np.ndarray:

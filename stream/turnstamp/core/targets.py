@@ -15,6 +15,7 @@ import numpy as np
 
 from .barycentre import SkyPosition
 from .batch import EventBatch
+from .harmonicsums import exp_two_pi_i
 from .tagger import TargetTagger
 
 if TYPE_CHECKING:
@@ -128,8 +129,9 @@ def cos_angular_distance(ra_deg, dec_deg, position: SkyPosition) -> np.ndarray:
     """Cosine of the great-circle distance from the target (spherical law of cosines).
 
     Cuts compare it with cos(radius): no inverse function per event. Near 1 its
-    rounding (1e-16) corresponds to 1e-8 rad, far below any cut's meaning."""
+    rounding (a few 1e-16) corresponds to 3e-8 rad, far below any cut's meaning.
+    Sines and cosines come from ``exp_two_pi_i`` of the angles in turns."""
     dec0 = np.radians(position.declination_deg)
-    dec = np.radians(dec_deg)
-    delta_ra = np.radians(ra_deg - position.right_ascension_deg)
-    return np.sin(dec) * np.sin(dec0) + np.cos(dec) * np.cos(dec0) * np.cos(delta_ra)
+    dec = exp_two_pi_i(np.asarray(dec_deg) / 360.0)
+    delta_ra = exp_two_pi_i((np.asarray(ra_deg) - position.right_ascension_deg) / 360.0)
+    return dec.imag * np.sin(dec0) + dec.real * np.cos(dec0) * delta_ra.real
