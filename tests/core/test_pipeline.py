@@ -47,6 +47,25 @@ def test_every_event_is_tagged_filtered_or_rejected_with_a_reason(demo_env, lant
     assert pipeline.counters.reconciles()
 
 
+def test_unchecked_or_all_refused_directions_are_carried_without_error(
+        demo_env, lantern, night_start_tt):
+    # directions nobody asked to check (a non-finite one falls outside every region),
+    # and a batch whose every event is refused before the region cut
+    pipeline = make_pipeline(demo_env, lantern, checked_columns=frozenset())
+    utc, _ = from_tt(night_start_tt + np.arange(3) * NS_PER_S, Scale.UTC, demo_env.leaps)
+    batch = EventBatch(source="test", sequence=0, time_scale=Scale.UTC,
+                       event_id=np.arange(3, dtype=np.uint64), time_ns=utc,
+                       ra_deg=np.array([np.nan, 123.45, np.inf]), dec_deg=np.full(3, 23.45))
+    result = pipeline.feed(batch)
+    assert (result.tagged, result.filtered, result.rejected) == (1, 2, 0)
+    refused = EventBatch(source="test", sequence=1, time_scale=Scale.UTC,
+                         event_id=np.arange(2, dtype=np.uint64),
+                         time_ns=np.full(2, np.iinfo(np.int64).min),
+                         ra_deg=np.full(2, 123.45), dec_deg=np.full(2, 23.45))
+    assert pipeline.feed(refused).rejected == 2
+    assert pipeline.counters.reconciles()
+
+
 def test_feeding_whole_or_split_gives_identical_outputs(demo_env, lantern, night_start_tt, rng):
     batches = night(demo_env, lantern, night_start_tt, seconds=120, batch_seconds=10)
     merged = EventBatch(source="test", sequence=0, time_scale=batches[0].time_scale,

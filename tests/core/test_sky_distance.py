@@ -41,3 +41,15 @@ def test_cos_angular_distance_against_astropy(rng):
     np.testing.assert_allclose(pole, [1.0, 1.0], rtol=0, atol=1e-15)
     assert abs(cos_angular_distance(np.array([217.3318]), np.array([-41.0627]), target)[0]
                - 1.0) < 1e-15
+
+
+def test_no_directions_and_bad_directions_give_no_error():
+    # an empty batch, and directions nobody checked (no region cut reads them): the
+    # distance is NaN where a direction is not finite, as np.cos would give
+    target = SkyPosition(217.3318, -41.0627)
+    assert cos_angular_distance(np.array([]), np.array([]), target).shape == (0,)
+    assert exp_two_pi_i(np.array([])).shape == (0,)
+    got = cos_angular_distance(np.array([np.nan, 217.3318, np.inf, 217.3318]),
+                               np.array([-41.0627, np.nan, -41.0627, -41.0627]), target)
+    assert np.isnan(got[:3]).all() and abs(got[3] - 1.0) < 1e-15
+    assert np.isnan(exp_two_pi_i(np.array([np.inf, -np.inf, np.nan]))).all()
