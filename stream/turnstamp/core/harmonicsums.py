@@ -99,6 +99,11 @@ def reduced_phases(phi: np.ndarray) -> np.ndarray:
     lowest, highest = phi.min(), phi.max()
     if not (math.isfinite(lowest) and math.isfinite(highest)):
         raise ValueError("phases must be finite")
+    return _into_unit_interval(phi, lowest, highest)
+
+
+def _into_unit_interval(phi: np.ndarray, lowest: float, highest: float) -> np.ndarray:
+    """Finite ``phi`` (smallest and largest value given) reduced into [0, 1)."""
     if lowest < 0.0 or highest >= 1.0:
         phi = phi - np.floor(phi)
         phi[phi >= 1.0] = 0.0  # tiny negative phases round up to exactly 1
@@ -142,10 +147,12 @@ def exp_two_pi_i(turns: np.ndarray) -> np.ndarray:
     if turns.size == 0:
         return out
     bad = None
-    if not (math.isfinite(turns.min()) and math.isfinite(turns.max())):
+    lowest, highest = turns.min(), turns.max()
+    if not (math.isfinite(lowest) and math.isfinite(highest)):
         bad = ~np.isfinite(turns)
         turns = np.where(bad, 0.0, turns)
-    turns = reduced_phases(turns)
+        lowest, highest = turns.min(), turns.max()
+    turns = _into_unit_interval(turns, lowest, highest)
     s = _scratch(None)
     for lo in range(0, turns.size, CHUNK):
         out[lo : lo + CHUNK] = _unit_vectors(turns[lo : lo + CHUNK], s)
