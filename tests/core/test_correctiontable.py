@@ -71,3 +71,18 @@ def test_table_says_what_happens_outside_its_coverage(calculator, leaps):
     again = CorrectionTable.from_columns(**table.to_columns(), provenance=table.provenance)
     np.testing.assert_array_equal(again.coefficients, table.coefficients)
     assert again.start_ns == table.start_ns and again.segment_ns == table.segment_ns
+
+
+def test_a_batch_in_one_segment_gets_the_same_bits_as_in_a_mixed_batch(calculator, leaps, rng):
+    # a batch inside one segment takes a shortcut (scalar coefficients); the values must
+    # not depend on which other events share the batch (archive rows are the same
+    # whatever the batching)
+    start, stop = night_tt(leaps, hours=2)
+    table = CorrectionTable.build(calculator.correction, start, stop)
+    alone = np.sort(rng.integers(start + 5 * NS_PER_S, start + 65 * NS_PER_S, 1000))
+    others = np.array([start - 1, stop - 1, table.stop_ns + 5])  # another segment, outside
+    values, flags, inside = table.evaluate(alone)
+    mixed, mixed_flags, mixed_inside = table.evaluate(np.concatenate([alone, others]))
+    assert inside.all() and list(mixed_inside[-3:]) == [False, True, False]
+    assert values.tobytes() == mixed[:1000].tobytes()
+    np.testing.assert_array_equal(flags, mixed_flags[:1000])

@@ -99,20 +99,21 @@ class CorrectionTable:
         """
         tt_ns = np.asarray(tt_ns, dtype=np.int64)
         since = tt_ns - self.start_ns
-        segment = since // self.segment_ns
         count = self.coefficients.shape[1]
+        if since.size:  # the usual case, a batch inside one segment: nothing per event but x
+            first = int(since.min()) // self.segment_ns
+            if 0 <= first < count and first == int(since.max()) // self.segment_ns:
+                x = (since - first * self.segment_ns) * (2.0 / self.segment_ns) - 1.0
+                return (_clenshaw(x, self.coefficients[:, first]),
+                        np.full(tt_ns.shape, self.segment_flags[first], dtype=np.uint32),
+                        np.ones(tt_ns.shape, bool))
+        segment = since // self.segment_ns
         inside = (since >= 0) & (segment < count)
         segment = np.clip(segment, 0, count - 1)
         x = (since - segment * self.segment_ns) * (2.0 / self.segment_ns) - 1.0
-        if segment.size and segment.min() == segment.max():  # the usual case: one batch, one hour
-            first = int(segment[0])
-            values = _clenshaw(x, self.coefficients[:, first])
-            flags = np.full(tt_ns.shape, self.segment_flags[first], dtype=np.uint32)
-        else:
-            values = _clenshaw_gather(x, self.coefficients, segment)
-            flags = self.segment_flags[segment]
+        values = _clenshaw_gather(x, self.coefficients, segment)
         values[~inside] = np.nan
-        return values, flags, inside
+        return values, self.segment_flags[segment], inside
 
     def to_columns(self) -> dict[str, np.ndarray]:
         """Columns for caching: one row per segment."""
@@ -137,16 +138,21 @@ class CorrectionTable:
 
 
 def _clenshaw(x, c):
-    """Chebyshev series with scalar coefficients ``c`` at points ``x`` (in place)."""
+    """Chebyshev series with scalar coefficients ``c`` at points ``x``:
+    b_k = (2x b_(k+1) - b_(k+2)) + c_k, three passes a term in three reused arrays
+    (the same roundings as ``_clenshaw_gather``: a - b is a + (-b) exactly)."""
     two_x = 2.0 * x
-    b1 = np.full_like(x, c[-1])
-    b2 = np.zeros_like(x)
-    for k in range(c.size - 2, 0, -1):
-        b2 *= -1.0
-        b2 += two_x * b1
-        b2 += c[k]
-        b1, b2 = b2, b1
-    return x * b1 - b2 + c[0]
+    work = [np.empty_like(x) for _ in range(3)]
+    b1, b2 = c[-1], 0.0  # scalars until the first term
+    for i, k in enumerate(range(c.size - 2, 0, -1)):
+        b = np.multiply(two_x, b1, out=work[i % 3])
+        b -= b2
+        b += c[k]
+        b1, b2 = b, b1
+    result = x * b1
+    result -= b2
+    result += c[0]
+    return result
 
 
 def _clenshaw_gather(x, coefficients, segment):

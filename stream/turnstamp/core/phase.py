@@ -102,11 +102,8 @@ class PhaseCalculator:
         if binary and self.model.binary is not None:
             extra_s, converged = self._remove_binary_delay(tdb_ns, extra_s)
             flags |= np.where(converged, 0, Quality.BINARY_NOT_CONVERGED).astype(np.uint32)
-        anchor_ns = ANCHOR_S * NS_PER_S
         since = tdb_ns - self._ref_ns
-        index = (since + anchor_ns // 2) // anchor_ns
-        offset_ns = (since - index * anchor_ns).astype(np.float64)  # exact: |offset| < 2**53
-        a0_hi, a0_lo, a1n_hi, a1n_lo, a1_hi, a1_lo, tail = self._anchors_for(index)
+        offset_ns, (a0_hi, a0_lo, a1n_hi, a1n_lo, a1_hi, a1_lo, tail) = self._anchors_for(since)
         # a1 * offset: exactly for the whole-ns part (up to 3 h, 1e7 cycles at 1 kHz);
         # the extra part (|extra| < ~600 s) in float64, good to 7e-11 cycles at 1 kHz
         t1_hi, t1_lo = two_prod(a1n_hi, offset_ns)
@@ -119,7 +116,10 @@ class PhaseCalculator:
             small += tail[m]
             small *= d
         small *= d
-        small += self._glitch_phase(tdb_ns, extra_s) + self._noise_phase(since, extra_s)
+        if self._glitches or self.model.timing_noise is not None:
+            small += self._glitch_phase(tdb_ns, extra_s) + self._noise_phase(since, extra_s)
+        else:
+            small += 0.0  # as adding the (zero) terms would: -0.0 becomes 0.0
         hi, lo = two_sum(t1_hi, t2)
         lo += t1_lo + small
         hi, lo = dd_add(a0_hi, a0_lo, hi, lo)
@@ -137,16 +137,23 @@ class PhaseCalculator:
             rest_ns * 1e-9 + (extra_s - self._binary_rem_s))
         return extra_s - delay, converged
 
-    def _anchors_for(self, index):
-        """Anchor coefficients for each anchor index: a0, a1/ns, a1/s (hi, lo) and the tail.
+    def _anchors_for(self, since):
+        """Offsets (float64 ns, exact: below 2**53) of ``since`` (ns from the reference
+        epoch) from their nearest anchors, and those anchors' coefficients: a0, a1/ns,
+        a1/s (hi, lo) and the tail.
 
-        A batch within one anchor (the usual case) gets scalars; otherwise each
-        coefficient is gathered per event.
+        A batch within one anchor (the usual case) gets scalars, with no division per
+        event; otherwise each coefficient is gathered per event.
         """
-        first, last = (int(index.min()), int(index.max())) if index.size else (0, 0)
-        if first == last:  # the usual case: a batch within one 6-hour anchor
+        anchor_ns = ANCHOR_S * NS_PER_S
+        half = anchor_ns // 2
+        first = (int(since.min()) + half) // anchor_ns if since.size else 0
+        if not since.size or first == (int(since.max()) + half) // anchor_ns:
             a0, a1n, a1, tail = self._anchor(first)
-            return (*a0, *a1n, *a1, tail)
+            return (since - first * anchor_ns).astype(np.float64), (*a0, *a1n, *a1, tail)
+        index = (since + half) // anchor_ns
+        offset_ns = (since - index * anchor_ns).astype(np.float64)
+        first, last = int(index.min()), int(index.max())
         if last - first > 4 * index.size + 16:
             keys, position = np.unique(index, return_inverse=True)
         else:
@@ -155,7 +162,7 @@ class PhaseCalculator:
         gathered = (np.array([a[i][j] for a in anchors])[position]
                     for i in range(3) for j in range(2))
         tail = np.stack([a[3] for a in anchors], axis=1)[:, position]
-        return (*gathered, tail)
+        return offset_ns, (*gathered, tail)
 
     def _glitch_phase(self, tdb_ns, extra_s):
         total = np.zeros(tdb_ns.shape)
@@ -204,8 +211,10 @@ class PhaseCalculator:
         tdb_ns = np.asarray(tdb_ns, dtype=np.int64)
         extra_s = np.zeros(tdb_ns.shape) if extra_s is None else np.asarray(extra_s, np.float64)
         hi, lo, flags = self._raw_phase(tdb_ns, extra_s)
-        outside = (tdb_ns < self.valid_from_ns) | (tdb_ns > self.valid_until_ns)
-        flags |= np.where(outside, Quality.OUTSIDE_MODEL_VALIDITY, 0).astype(np.uint32)
+        if tdb_ns.size and not (tdb_ns.min() >= self.valid_from_ns
+                                and tdb_ns.max() <= self.valid_until_ns):
+            outside = (tdb_ns < self.valid_from_ns) | (tdb_ns > self.valid_until_ns)
+            flags |= np.where(outside, Quality.OUTSIDE_MODEL_VALIDITY, 0).astype(np.uint32)
         pulse, fraction = floor_and_fraction(hi, lo)
         return pulse, fraction, flags
 

@@ -101,19 +101,23 @@ class TargetTagger:
             part = slice(lo, min(lo + CHUNK, n))
             t = tt_ns[part]
             correction, flags, inside = self.table.evaluate(t)
+            everywhere = inside.all()  # the usual case: no per-event masking
             if extra_s is not None:
                 correction = correction + extra_s[part]
-            correction = np.where(inside, correction, 0.0)
-            choice = self.choose_models(t)
-            for index in np.unique(choice) if len(self.calculators) > 1 else (0,):
-                rows = slice(None) if len(self.calculators) == 1 else choice == index
+            if not everywhere:
+                correction = np.where(inside, correction, 0.0)
+            single = len(self.calculators) == 1
+            choice = 0 if single else self.choose_models(t)
+            for index in (0,) if single else np.unique(choice):
+                rows = slice(None) if single else choice == index
                 pulse, phase, model_flags = self.calculators[index].phase(t[rows], correction[rows])
                 out.pulse_number[part][rows] = pulse
                 out.phase[part][rows] = phase
                 flags[rows] |= model_flags
-            whole = np.round(correction * 1e9)
-            out.barycentric_tdb_ns[part] = t + whole.astype(np.int64)
-            out.correction_s[part] = np.where(inside, correction, np.nan)
+            whole = np.rint(correction * 1e9)
+            np.add(t, whole.astype(np.int64), out=out.barycentric_tdb_ns[part])
+            out.correction_s[part] = correction if everywhere else np.where(inside, correction,
+                                                                            np.nan)
             out.model_index[part] = choice
             out.flags[part] = flags
             out.inside[part] = inside

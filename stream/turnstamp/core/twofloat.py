@@ -105,6 +105,7 @@ def floor_and_fraction(hi, lo):
     whole = whole + carry
     # frac can round up to exactly 1.0 when it is within half an ulp below it.
     wrap = frac >= 1.0
-    frac = np.where(wrap, 0.0, frac)
-    whole = np.where(wrap, whole + 1.0, whole)
+    if wrap.any():
+        frac = np.where(wrap, 0.0, frac)
+        whole = np.where(wrap, whole + 1.0, whole)
     return whole.astype(np.int64), frac
