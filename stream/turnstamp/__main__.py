@@ -1,5 +1,3 @@
-import sys
+from .commands.main import console
 
-from .commands.main import main
-
-sys.exit(main())
+console()

@@ -1,10 +1,11 @@
 """The whole ``turnstamp tag`` command, file to file, as a user runs it.
 
-Each run is a child process (``turnstamp tag`` through its ``main``) timed by the
-wall clock from its start to its exit, start-up included; its CPU time comes from
-the kernel's accounting of that child (``os.wait4``) and its peak resident memory
-from its own ``VmHWM`` as it exits: ``ru_maxrss`` would count this process's peak,
-which a child inherits when it is started by fork and exec. Inputs are
+Each run is a child process (``turnstamp tag`` through the program's entry point,
+``commands.main.console``) timed by the wall clock from its start to its exit,
+start-up included; its CPU time comes from the kernel's accounting of that child
+(``os.wait4``) and its peak resident memory from its own ``VmHWM`` as it exits:
+``ru_maxrss`` would count this process's peak, which a child inherits when it is
+started by fork and exec. Inputs are
 one night of ``event_id`` + ``time_ns`` in Arrow IPC (batches of 2^20 rows) and
 Parquet (row groups of 2^20 rows); barycentre tables come from a cache warmed by
 a first small run, as on a user's second night. Start-up is the wall clock of a
@@ -33,12 +34,13 @@ __all__ = ["bench_tag_command"]
 
 _ROWS_PER_BATCH = 1 << 20
 _ENV = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
-_CHILD = ("import sys\n"
-          "from turnstamp.commands.main import main\n"
-          "status = main(sys.argv[1:])\n"
-          "with open('/proc/self/status') as own:\n"
-          "    sys.stderr.write(''.join(l for l in own if l.startswith('VmHWM')))\n"
-          "sys.exit(status)\n")
+_CHILD = ("import atexit, sys\n"
+          "def peak():\n"
+          "    with open('/proc/self/status') as own:\n"
+          "        sys.stderr.write(''.join(l for l in own if l.startswith('VmHWM')))\n"
+          "atexit.register(peak)\n"
+          "from turnstamp.commands.main import console\n"
+          "console(sys.argv[1:])\n")
 _NIGHT_UTC = "2026-12-02T00:00:00"
 
 

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import argparse
 import functools
+import gc
 import logging
 import os
 import sys
@@ -40,7 +41,7 @@ from . import (
 )
 from .common import HelpFormatter
 
-__all__ = ["COMMANDS", "build_parser", "main"]
+__all__ = ["COMMANDS", "build_parser", "main", "console"]
 
 COMMANDS = (demo, run, check, simulate, tag, retag, clock, model, table, inspect_output, report,
             watch, stack, template, bench, schemas)
@@ -81,5 +82,15 @@ def main(argv: list[str] | None = None) -> int:
         return 130
 
 
+def console(argv: list[str] | None = None) -> None:
+    """The ``turnstamp`` program: ``main``, then exit with its status. What is still
+    alive is freed with the process, not traced by the interpreter's last garbage
+    collections first (a tenth of a second after ``tag`` on 10^7 events); every
+    output is closed before ``main`` returns."""
+    status = main(argv)
+    gc.freeze()
+    sys.exit(status)
+
+
 if __name__ == "__main__":
-    sys.exit(main())
+    console()
