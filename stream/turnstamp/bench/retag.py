@@ -81,12 +81,11 @@ def _in_process(dataset: Path, out: Path, inputs) -> float:
     """Seconds to do every fragment here, one after another, with the workers' tasks."""
     import dataclasses
 
-    from ..retag.run import NIGHTLY
     from ..retag.work import fragment_days, retag_fragment
 
     started = time.perf_counter()
     prepared = _prepared(dataset, out, inputs)
-    job = dataclasses.replace(prepared.job, tables=None, statistics=NIGHTLY)
+    job = dataclasses.replace(prepared.job, tables=None)
     for fragment in prepared.plan.todo:
         days = fragment_days(fragment, job)
         tables = [prepared.job.tables.day_table(day) for day in days]

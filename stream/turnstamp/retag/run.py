@@ -31,8 +31,8 @@ from pathlib import Path
 
 from ..assemble import Environment
 from ..core.targets import TargetSetup
-from ..core.timebase import NS_PER_DAY, Scale
-from ..tagging.batchtag import StatisticsShape, TagJob
+from ..core.timebase import Scale
+from ..tagging.batchtag import TagJob
 from ..tagging.run import run_metadata, tag_job
 from ..tagging.summary import recipe_lines
 from ..tagging.times import TimeConvention
@@ -40,9 +40,7 @@ from .merge import RunTotals, write_statistics
 from .plan import Fragment, Plan, fingerprint, model_fingerprint, plan_run
 from .work import Failure, FragmentResult, fragment_days, retag_fragment
 
-__all__ = ["RetagSummary", "Prepared", "prepare", "execute", "retag", "NIGHTLY"]
-
-NIGHTLY = StatisticsShape(interval_ns=NS_PER_DAY, retain_ns=None)  # one interval per TT day
+__all__ = ["RetagSummary", "Prepared", "prepare", "execute", "retag"]
 
 
 @dataclass
@@ -99,7 +97,7 @@ class _Shared:
 
     def __init__(self, client, job: TagJob):
         self._client = client
-        self._job = dataclasses.replace(job, tables=None, statistics=NIGHTLY)
+        self._job = dataclasses.replace(job, tables=None)
         self._days = job.tables
         self._tables: dict[int, object] = {}
         self._futures: dict = {}
