@@ -7,9 +7,12 @@ start-up included; its CPU time comes from the kernel's accounting of that child
 ``ru_maxrss`` would count this process's peak, which a child inherits when it is
 started by fork and exec. Inputs are
 one night of ``event_id`` + ``time_ns`` in Arrow IPC (batches of 2^20 rows) and
-Parquet (row groups of 2^20 rows); barycentre tables come from a cache warmed by
-a first small run, as on a user's second night. Start-up is the wall clock of a
-run on a 1 000-event file. The children may write Python's bytecode cache (an
+Parquet (row groups of 2^20 rows), written back to disk (``os.sync``) before the
+first timed run; barycentre tables come from a cache warmed by a first small run,
+as on a user's second night. Each figure is the median of ``RUNS`` runs (the
+slowest and fastest rates are reported beside it: this machine's speed drifts by
+tens of percent within minutes). Start-up is the fastest of three runs on a
+1 000-event file. The children may write Python's bytecode cache (an
 installed package has one), whatever ``PYTHONDONTWRITEBYTECODE`` says here.
 
 ``tag`` computes on one thread; reading the next batch and writing the last one
@@ -30,7 +33,9 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["bench_tag_command"]
+__all__ = ["RUNS", "bench_tag_command"]
+
+RUNS = 3
 
 _ROWS_PER_BATCH = 1 << 20
 _ENV = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
@@ -92,9 +97,22 @@ def _run_tag(events: Path, out: Path, site: Path, cache: Path, one_cpu: bool = F
             "rss_mb": int(peak[-1]) / 1024, "summary": json.loads(stdout)}
 
 
+def _median_run(events: Path, out: Path, site: Path, cache: Path, n: int,
+                one_cpu: bool = False) -> list[dict]:
+    """``RUNS`` runs of ``tag`` on ``events``, fastest first (each output removed: room
+    on disk for the next); every run must tag all ``n`` events."""
+    runs = []
+    for _ in range(RUNS):
+        runs.append(_run_tag(events, out, site, cache, one_cpu))
+        out.unlink()
+        assert runs[-1]["summary"]["tagged"] == n, runs[-1]["summary"]
+    return sorted(runs, key=lambda run: run["seconds"])
+
+
 def bench_tag_command(n: int = 10**7) -> dict:
     """Figures of the ``tag`` command on ``n`` events in both formats (see the module
-    docstring): events/s by the wall clock, peak RSS beyond the input's size."""
+    docstring): events/s by the wall clock (median of ``RUNS``), peak RSS beyond the
+    input's size (the largest of the runs)."""
     from ..demo import site_toml
 
     out: dict = {"tag_events": n}
@@ -109,22 +127,25 @@ def bench_tag_command(n: int = 10**7) -> dict:
                    key=lambda run: run["seconds"])
         out["tag_first_run_s"] = first["seconds"]
         out["tag_startup_s"] = warm["seconds"]
-        for kind, events in _write_events(folder, n).items():
+        inputs = _write_events(folder, n)
+        os.sync()  # the inputs' write-back, not in the first timed run
+        for kind, events in inputs.items():
             size_mb = events.stat().st_size / 2**20
-            run = _run_tag(events, folder / f"tagged-{kind}.arrow", site, cache)
-            (folder / f"tagged-{kind}.arrow").unlink()  # room on disk for the next
-            assert run["summary"]["tagged"] == n, run["summary"]
+            runs = _median_run(events, folder / f"tagged-{kind}.arrow", site, cache, n)
+            run = runs[len(runs) // 2]
             out[f"tag_{kind}_events_per_s"] = n / run["seconds"]
+            out[f"tag_{kind}_events_per_s_lowest"] = n / runs[-1]["seconds"]
+            out[f"tag_{kind}_events_per_s_highest"] = n / runs[0]["seconds"]
             out[f"tag_{kind}_seconds"] = run["seconds"]
             out[f"tag_{kind}_cpu_s"] = run["cpu_s"]
             out[f"tag_{kind}_input_mb"] = size_mb
-            out[f"tag_{kind}_rss_mb"] = run["rss_mb"]
-            out[f"tag_{kind}_rss_over_input_mb"] = run["rss_mb"] - size_mb
+            out[f"tag_{kind}_rss_mb"] = max(r["rss_mb"] for r in runs)
+            out[f"tag_{kind}_rss_over_input_mb"] = out[f"tag_{kind}_rss_mb"] - size_mb
             if kind == "arrow" and hasattr(os, "sched_setaffinity"):
                 # the same, held to one CPU: no overlap of reading and writing with tagging
-                run = _run_tag(events, folder / "one-cpu.arrow", site, cache, one_cpu=True)
-                (folder / "one-cpu.arrow").unlink()
-                out["tag_arrow_one_cpu_events_per_s"] = n / run["seconds"]
+                runs = _median_run(events, folder / "one-cpu.arrow", site, cache, n,
+                                   one_cpu=True)
+                out["tag_arrow_one_cpu_events_per_s"] = n / runs[len(runs) // 2]["seconds"]
             events.unlink()
     out["tag_events_per_s"] = min(out["tag_arrow_events_per_s"], out["tag_parquet_events_per_s"])
     return out
