@@ -5,15 +5,15 @@ Each run is a child process (``turnstamp tag`` through the program's entry point
 start-up included; its CPU time comes from the kernel's accounting of that child
 (``os.wait4``) and its peak resident memory from its own ``VmHWM`` as it exits:
 ``ru_maxrss`` would count this process's peak, which a child inherits when it is
-started by fork and exec. Inputs are
-one night of ``event_id`` + ``time_ns`` in Arrow IPC (batches of 2^20 rows) and
-Parquet (row groups of 2^20 rows), written back to disk (``os.sync``) before the
-first timed run; barycentre tables come from a cache warmed by a first small run,
-as on a user's second night. Each figure is the median of ``RUNS`` runs (the
-slowest and fastest rates are reported beside it: this machine's speed drifts by
-tens of percent within minutes). Start-up is the fastest of three runs on a
-1 000-event file. The children may write Python's bytecode cache (an
-installed package has one), whatever ``PYTHONDONTWRITEBYTECODE`` says here.
+started by fork and exec. Inputs are one night of ``event_id`` + ``time_ns`` in
+Arrow IPC (batches of 2^20 rows) and Parquet (row groups of 2^20 rows), written
+back to disk (``os.sync``) before the first timed run; barycentre tables come from
+a cache warmed by a first small run, as on a user's second night. Each figure is
+the median of ``RUNS`` runs (the slowest and fastest rates are reported beside it:
+this machine's speed drifts by tens of percent within minutes). Start-up is the
+fastest of three runs on a 1 000-event file. The children may write Python's
+bytecode cache (an installed package has one), whatever ``PYTHONDONTWRITEBYTECODE``
+says here.
 
 ``tag`` computes on one thread; reading the next batch and writing the last one
 run on two helper threads that spend their time in pyarrow and the file system
@@ -97,7 +97,7 @@ def _run_tag(events: Path, out: Path, site: Path, cache: Path, one_cpu: bool = F
             "rss_mb": int(peak[-1]) / 1024, "summary": json.loads(stdout)}
 
 
-def _median_run(events: Path, out: Path, site: Path, cache: Path, n: int,
+def _timed_runs(events: Path, out: Path, site: Path, cache: Path, n: int,
                 one_cpu: bool = False) -> list[dict]:
     """``RUNS`` runs of ``tag`` on ``events``, fastest first (each output removed: room
     on disk for the next); every run must tag all ``n`` events."""
@@ -131,7 +131,7 @@ def bench_tag_command(n: int = 10**7) -> dict:
         os.sync()  # the inputs' write-back, not in the first timed run
         for kind, events in inputs.items():
             size_mb = events.stat().st_size / 2**20
-            runs = _median_run(events, folder / f"tagged-{kind}.arrow", site, cache, n)
+            runs = _timed_runs(events, folder / f"tagged-{kind}.arrow", site, cache, n)
             run = runs[len(runs) // 2]
             out[f"tag_{kind}_events_per_s"] = n / run["seconds"]
             out[f"tag_{kind}_events_per_s_lowest"] = n / runs[-1]["seconds"]
@@ -143,7 +143,7 @@ def bench_tag_command(n: int = 10**7) -> dict:
             out[f"tag_{kind}_rss_over_input_mb"] = out[f"tag_{kind}_rss_mb"] - size_mb
             if kind == "arrow" and hasattr(os, "sched_setaffinity"):
                 # the same, held to one CPU: no overlap of reading and writing with tagging
-                runs = _median_run(events, folder / "one-cpu.arrow", site, cache, n,
+                runs = _timed_runs(events, folder / "one-cpu.arrow", site, cache, n,
                                    one_cpu=True)
                 out["tag_arrow_one_cpu_events_per_s"] = n / runs[len(runs) // 2]["seconds"]
             events.unlink()
