@@ -111,7 +111,7 @@ class CorrectionTable:
         inside = (since >= 0) & (segment < count)
         segment = np.clip(segment, 0, count - 1)
         x = (since - segment * self.segment_ns) * (2.0 / self.segment_ns) - 1.0
-        values = _clenshaw_gather(x, self.coefficients, segment)
+        values = _clenshaw(x, self.coefficients[:, segment])
         values[~inside] = np.nan
         return values, self.segment_flags[segment], inside
 
@@ -138,13 +138,13 @@ class CorrectionTable:
 
 
 def _clenshaw(x, c):
-    """Chebyshev series with scalar coefficients ``c`` at points ``x``:
-    b_k = (2x b_(k+1) - b_(k+2)) + c_k, three passes a term in three reused arrays
-    (the same roundings as ``_clenshaw_gather``: a - b is a + (-b) exactly)."""
+    """Chebyshev series at points ``x``, coefficients ``c[0..n-1]`` each a scalar or one
+    per point: b_k = (2x b_(k+1) - b_(k+2)) + c_k, three passes a term in three reused
+    arrays."""
     two_x = 2.0 * x
     work = [np.empty_like(x) for _ in range(3)]
-    b1, b2 = c[-1], 0.0  # scalars until the first term
-    for i, k in enumerate(range(c.size - 2, 0, -1)):
+    b1, b2 = c[-1], 0.0  # until the first term
+    for i, k in enumerate(range(len(c) - 2, 0, -1)):
         b = np.multiply(two_x, b1, out=work[i % 3])
         b -= b2
         b += c[k]
@@ -153,19 +153,6 @@ def _clenshaw(x, c):
     result -= b2
     result += c[0]
     return result
-
-
-def _clenshaw_gather(x, coefficients, segment):
-    """Chebyshev series whose coefficients differ per point (gathered by segment)."""
-    two_x = 2.0 * x
-    b1 = coefficients[-1][segment]
-    b2 = np.zeros_like(x)
-    for k in range(coefficients.shape[0] - 2, 0, -1):
-        b2 *= -1.0
-        b2 += two_x * b1
-        b2 += coefficients[k][segment]
-        b1, b2 = b2, b1
-    return x * b1 - b2 + coefficients[0][segment]
 
 
 class TableSet:
