@@ -81,7 +81,7 @@ def test_clock_on_a_service_folder_names_tai_given_as_utc(tmp_path, capsys, demo
     with RotatingArrowWriter(folder, "archive", schemas.ARCHIVE, metadata=metadata) as writer:
         for batch in batches:
             result = pipeline.feed(batch)
-            for table in archive_tables(batch, result, pipeline.targets):
+            for table in archive_tables([batch], [result], pipeline.targets):
                 writer.write(table)
     assert main(["clock", str(folder), "--model", f"lantern={data_file('lantern.toml')}",
                  "--template", f"lantern={data_file('lantern-template.toml')}",

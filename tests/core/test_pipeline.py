@@ -93,6 +93,44 @@ def test_feeding_whole_or_split_gives_identical_outputs(demo_env, lantern, night
                 assert b[key] == pytest.approx(value, rel=1e-9), key
 
 
+def test_batches_fed_joined_give_each_the_result_of_its_own_feed(demo_env, lantern,
+                                                                 night_start_tt):
+    import copy
+
+    batches = night(demo_env, lantern, night_start_tt, seconds=60, batch_seconds=10)
+    batches[1].time_ns[:3] = np.iinfo(np.int64).min  # refused: bad time
+    batches[2].event_id[1] = batches[2].event_id[0]  # repeated within its own batch
+    batches[3].event_id[:] = np.arange(len(batches[3]))  # ids another batch has too: fine
+    batches[2].event_id[2:] = np.arange(2, len(batches[2]))
+    batches[3].time_ns[-1] = night_start_tt + 400 * 24 * 3600 * NS_PER_S  # beyond the table
+    batches[4].ra_deg[:] = batches[4].ra_deg + 40.0  # all outside the region: none tagged
+    joined_pipeline = make_pipeline(demo_env, lantern)
+    whole, parts = joined_pipeline.feed_joined(batches)
+    alone = make_pipeline(demo_env, copy.deepcopy(lantern))
+    for batch, part in zip(batches, parts, strict=True):
+        single = alone.feed(batch)
+        assert part.archive.keys() == single.archive.keys()
+        for name, columns in single.archive.items():
+            assert part.archive[name].keys() == columns.keys()
+            for column, values in columns.items():
+                np.testing.assert_array_equal(part.archive[name][column], values, column)
+        np.testing.assert_array_equal(part.rejected_index, single.rejected_index)
+        assert (part.rejected_reason, part.rejected_detail) == \
+            (single.rejected_reason, single.rejected_detail)
+        assert (part.events, part.tagged, part.filtered, part.first_tt_ns, part.last_tt_ns) == \
+            (single.events, single.tagged, single.filtered, single.first_tt_ns,
+             single.last_tt_ns)
+    assert "lantern" not in parts[4].archive and parts[4].filtered == len(batches[4])
+    assert [p.rejected for p in parts][:4] == [0, 3, 1, 1]
+    assert whole.events == sum(len(b) for b in batches)
+    assert (whole.tagged, whole.rejected) == (sum(p.tagged for p in parts),
+                                              sum(p.rejected for p in parts))
+    assert joined_pipeline.counters.to_state() == alone.counters.to_state()
+    for a, b in zip(joined_pipeline.significance(), alone.significance(), strict=True):
+        for key, value in a.items():
+            assert b[key] == (value if isinstance(value, str) else pytest.approx(value, rel=1e-9))
+
+
 def test_statistics_equal_a_direct_computation_on_the_archive(demo_env, lantern, night_start_tt):
     pipeline = make_pipeline(demo_env, lantern)
     archive = [pipeline.feed(b).archive["lantern"]

@@ -83,10 +83,10 @@ def test_banner_at_start_summary_at_stop_and_failed_when_it_fails(service_config
 
     failing = Service(config)  # a bug of ours while running: said, files closed
 
-    def broken(frames, received):
+    def broken(messages):
         raise RuntimeError("a broken invariant")
 
-    failing.handle = broken
+    failing.handle_queued = broken
     errors = []
     thread = threading.Thread(target=lambda: _catch(failing.run, errors), daemon=True)
     thread.start()

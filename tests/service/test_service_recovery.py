@@ -32,7 +32,7 @@ def _crash_with_a_message_in_flight(service: Service, batch) -> None:
     """Its archive and rejects rows are out, its ledger row is not; then every file
     is left as a killed process leaves it: no end written, locks released."""
     result = service.pipeline.feed(batch)
-    for table in archive_tables(batch, result, service.pipeline.targets):
+    for table in archive_tables([batch], [result], service.pipeline.targets):
         service.writers["archive"].write(table)
     service.writers["rejects"].write(message_reject_table(
         0, batch.source, batch.sequence, "bad_value", "in flight", len(batch), 0))

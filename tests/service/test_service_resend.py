@@ -115,9 +115,14 @@ def test_the_readme_resend_recipe_after_a_kill_with_a_sender_at_full_rate(
     sender = Sender(publisher, messages, control)
     sender.start()
     try:
-        assert wait_until(lambda: _status(out).get("counters", {}).get("messages_received", 0)
-                          >= 40, 60, 0.05)
-        service.send_signal(signal.SIGKILL)  # messages in its memory are lost
+        # frozen mid-stream, once it has committed some messages (before the first one
+        # it cannot know what it lacks), so that what the sender pushes then waits in
+        # its socket buffers and queues: running, it keeps up with this sender
+        assert wait_until(lambda: ask_sources(control).get(SOURCE, {})
+                          .get("committed_through", -1) >= 20, 60, 0.001)
+        service.send_signal(signal.SIGSTOP)
+        assert wait_until(lambda: _stalled(publisher), 30)
+        service.send_signal(signal.SIGKILL)  # messages in its memory and buffers are lost
         service.wait(timeout=30)
         wait_until(lambda: publisher.sequence >= 200 or not sender.is_alive(), 20)
         service = _start(command, out)
@@ -145,6 +150,13 @@ def test_the_readme_resend_recipe_after_a_kill_with_a_sender_at_full_rate(
     assert counters["events_received"] - duplicates == total
     assert archive.num_rows == counters["events_tagged"]
     assert sender.resent > 0
+
+
+def _stalled(publisher, seconds=0.3) -> bool:
+    """The sender sent nothing for ``seconds``: its queue to the service is full."""
+    before = publisher.sequence
+    time.sleep(seconds)
+    return publisher.sequence == before
 
 
 def _committed(out) -> set:

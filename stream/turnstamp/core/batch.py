@@ -9,6 +9,7 @@ Missing values arrive as sentinels: ``MISSING_TIME`` in ``time_ns``,
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, fields, replace
 from enum import IntEnum
 
@@ -81,6 +82,23 @@ class EventBatch:
     def take(self, index) -> EventBatch:
         """A batch of the selected rows (boolean mask or indices)."""
         return replace(self, **{name: column[index] for name, column in self.columns().items()})
+
+    def joinable(self, other: EventBatch) -> bool:
+        """Same time scale and same columns: the two can be ``join``-ed."""
+        return self.time_scale == other.time_scale and \
+            self.columns().keys() == other.columns().keys()
+
+    @staticmethod
+    def join(batches: Sequence[EventBatch]) -> EventBatch:
+        """Joinable batches end to end as one, with the first one's source and
+        sequence (``ValueError`` if they are not joinable)."""
+        first = batches[0]
+        if len(batches) == 1:
+            return first
+        if not all(first.joinable(batch) for batch in batches[1:]):
+            raise ValueError("batches to join must have one time scale and the same columns")
+        return replace(first, **{name: np.concatenate([getattr(batch, name) for batch in batches])
+                                 for name in first.columns()})
 
 
 class RejectCode(IntEnum):

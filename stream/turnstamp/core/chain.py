@@ -36,8 +36,8 @@ from .targets import Recipe, TargetSetup, cos_angular_distance
 from .timebase import ClockCorrection, LeapSecondTable, site_tt
 from .timebinned import TimeBinnedMoments, update_together
 
-__all__ = ["ChainSettings", "TimedBatch", "TaggedRows", "time_base", "tag_targets",
-           "used_columns", "recipe_rows", "add_recipe_moments"]
+__all__ = ["ChainSettings", "TimedBatch", "TaggedRows", "time_base", "join_timed",
+           "tag_targets", "tag_parts", "used_columns", "recipe_rows", "add_recipe_moments"]
 
 
 @dataclass(frozen=True)
@@ -103,12 +103,31 @@ def time_base(batch: EventBatch, settings: ChainSettings) -> TimedBatch:
     return TimedBatch(codes, valid, tt_ns, extra, flags)
 
 
+def join_timed(parts: Sequence[TimedBatch]) -> TimedBatch:
+    """The ``time_base`` of batches joined end to end (``EventBatch.join``)."""
+    if len(parts) == 1:
+        return parts[0]
+    extra = None if parts[0].extra_s is None else np.concatenate([p.extra_s for p in parts])
+    return TimedBatch(*(np.concatenate([getattr(p, name) for p in parts])
+                        for name in ("codes", "valid", "tt_ns")), extra,
+                      np.concatenate([p.flags for p in parts]))
+
+
 def tag_targets(batch: EventBatch, timed: TimedBatch,
                 targets: Iterable[TargetSetup]) -> FeedResult:
     """Tag the valid events for every target; the batch's accounting and archive columns.
 
     ``timed.codes`` is updated in place with the coverage refusals.
     """
+    return tag_parts(batch, timed, targets, [len(batch)])[0]
+
+
+def tag_parts(batch: EventBatch, timed: TimedBatch, targets: Iterable[TargetSetup],
+              lengths: Sequence[int]) -> tuple[FeedResult, list[FeedResult]]:
+    """``tag_targets`` of a batch made of consecutive parts (messages joined into one
+    batch, ``join_batches``), in one pass: the accounting of the whole, and of each
+    part of ``lengths`` rows as ``tag_targets`` of that part alone would give it
+    (its archive columns are views of the whole's; row indices its own)."""
     targets = list(targets)
     codes, valid = timed.codes, timed.valid
     for target in targets:
@@ -117,20 +136,45 @@ def tag_targets(batch: EventBatch, timed: TimedBatch,
             codes[valid & ~covered] = RejectCode.OUTSIDE_TABLE_COVERAGE
             valid = valid & covered
     tagged = np.zeros(len(batch), bool)
-    archive: dict[str, dict[str, np.ndarray]] = {}
+    found: dict[str, TaggedRows] = {}
     for target in targets:
-        found = _tag_target(target, batch, valid, timed)
-        if found is not None:
-            tagged[found.rows] = True
-            archive[target.name] = found.columns
+        rows = _tag_target(target, batch, valid, timed)
+        if rows is not None:
+            tagged[rows.rows] = True
+            found[target.name] = rows
     refused = np.flatnonzero(codes)
     reasons, details = describe_rejects(codes[refused])
-    valid_tt = timed.tt_ns if refused.size == 0 else timed.tt_ns[valid]
-    tagged_count = int(np.count_nonzero(tagged))
+    whole = _accounting(0, len(batch), found, refused, reasons, details, tagged, valid,
+                        timed.tt_ns)
+    if len(lengths) == 1:
+        return whole, [whole]
+    bounds = np.cumsum([0, *lengths]).tolist()
+    parts = [_accounting(lo, hi, found, refused, reasons, details, tagged, valid, timed.tt_ns)
+             for lo, hi in zip(bounds[:-1], bounds[1:], strict=True)]
+    return whole, parts
+
+
+def _accounting(lo: int, hi: int, found: dict[str, TaggedRows], refused: np.ndarray,
+                reasons: list[str], details: list[str], tagged: np.ndarray, valid: np.ndarray,
+                tt_ns: np.ndarray) -> FeedResult:
+    """The ``FeedResult`` of rows [lo, hi) of a tagged batch."""
+    archive: dict[str, dict[str, np.ndarray]] = {}
+    for name, rows in found.items():
+        if isinstance(rows.rows, slice):
+            first, last = lo, hi
+        else:
+            first, last = np.searchsorted(rows.rows, [lo, hi]).tolist()
+        if last > first:
+            whole = first == 0 and last == len(rows.columns["event_id"])
+            archive[name] = rows.columns if whole else {
+                column: values[first:last] for column, values in rows.columns.items()}
+    a, b = np.searchsorted(refused, [lo, hi]).tolist()
+    valid_tt = tt_ns[lo:hi] if a == b else tt_ns[lo:hi][valid[lo:hi]]
+    tagged_count = int(np.count_nonzero(tagged[lo:hi]))
     return FeedResult(
-        archive=archive, rejected_index=refused, rejected_reason=reasons,
-        rejected_detail=details, events=len(batch), tagged=tagged_count,
-        filtered=len(batch) - refused.size - tagged_count,
+        archive=archive, rejected_index=refused[a:b] - lo, rejected_reason=reasons[a:b],
+        rejected_detail=details[a:b], events=hi - lo, tagged=tagged_count,
+        filtered=hi - lo - (b - a) - tagged_count,
         first_tt_ns=int(valid_tt.min()) if valid_tt.size else None,
         last_tt_ns=int(valid_tt.max()) if valid_tt.size else None)
 

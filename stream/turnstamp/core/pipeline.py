@@ -28,13 +28,14 @@ same outputs (the statistics to float rounding).
 from __future__ import annotations
 
 import functools
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
 
 from .accounting import Counters, FeedResult, QualityCounts
 from .batch import EventBatch
-from .chain import ChainSettings, add_recipe_moments, tag_targets, time_base
+from .chain import ChainSettings, add_recipe_moments, join_timed, tag_parts, time_base
 from .clock.apparent import SiteSpin
 from .clock.check import CheckSettings, check_target
 from .clock.chunks import ChunkOffset
@@ -125,13 +126,23 @@ class Pipeline:
     # -- the hot path -------------------------------------------------------------
     def feed(self, batch: EventBatch) -> FeedResult:
         """Process one batch; see the module docstring."""
-        result = tag_targets(batch, time_base(batch, self.chain), self.targets.values())
+        return self.feed_joined([batch])[0]
+
+    def feed_joined(self, batches: Sequence[EventBatch]) -> tuple[FeedResult, list[FeedResult]]:
+        """Process joinable batches (``EventBatch.joinable``, e.g. messages queued
+        together) as one: each batch's value checks and time base alone (an event id
+        repeats only within its batch), then one pass of tagging and statistics over
+        them all. Returns the result of the whole and of each batch (as ``feed`` of
+        that batch would give it; the statistics agree to float rounding)."""
+        timed = join_timed([time_base(batch, self.chain) for batch in batches])
+        result, parts = tag_parts(EventBatch.join(batches), timed, self.targets.values(),
+                                  [len(batch) for batch in batches])
         for name, columns in result.archive.items():
             self.accumulate(name, columns["site_tt_ns"], columns["phase"], columns["weight"],
                             columns["recipe_flags"], columns["quality_flags"],
                             columns["barycentric_correction_s"])
         self.counters.add_feed(result)
-        return result
+        return result, parts
 
     def accumulate(self, name: str, tt_ns, phase, weight, recipe_flags, quality, correction_s):
         """Add tagged events to a target's statistics (``chain.add_recipe_moments``):

@@ -8,6 +8,9 @@ The ledger row is the commit mark of a message. Its rows go out in one fixed ord
 2. its rejects rows (a sequence-gap note, refused events, or the refused message),
 3. one ledger row (``MessageRecord.row()``), which carries the message's accounting.
 
+Messages fed together (queued at once) commit together, step by step: all their
+archive rows, all their rejects rows, then their ledger rows in one table.
+
 A crash between two steps leaves archive or rejects rows whose message has no
 ledger row; ``recovery`` finds them by their (source, sequence) and drops them, so
 a message counts either whole or not at all. Change the order and restarts will
@@ -63,22 +66,30 @@ class Ledger:
                rejects: Iterable[pa.Table] = ()) -> None:
         """Write one message's rows in commit order; count it once its ledger row
         is out."""
+        self.commit_many([record], archive, rejects)
+
+    def commit_many(self, records: list[MessageRecord], archive: Iterable[pa.Table] = (),
+                    rejects: Iterable[pa.Table] = ()) -> None:
+        """``commit`` of messages fed together: all their archive rows, all their
+        rejects rows, then their ledger rows in one table (a crash before that table
+        is whole commits none of them)."""
         rejects = list(rejects)
         self.in_commit = True
         for stream in (self.archive, self.rejects, self.ledger):
             rotate = getattr(stream, "check_rotation", None)
-            if rotate is not None:  # between messages: one message's rows never straddle
+            if rotate is not None:  # between commits: one message's rows never straddle
                 rotate()
         for table in archive:
             self.archive.write(table)
         for table in rejects:
             self.rejects.write(table)
         if self.ledger is not None:
-            self.ledger.write(ledger_table([record.row()]))
+            self.ledger.write(ledger_table([record.row() for record in records]))
         self.in_commit = False
         for table in rejects:
             count_rejects(self.counters, table)
-        self.counters.add_message(record)
+        for record in records:
+            self.counters.add_message(record)
 
 
 def count_rejects(counters: Counters, rows: pa.Table | pa.RecordBatch) -> None:

@@ -7,7 +7,7 @@ model, reason) are dictionary-encoded from their indices.
 from __future__ import annotations
 
 import json
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 
 import numpy as np
 import pyarrow as pa
@@ -39,23 +39,42 @@ def _constant(value: str, n: int) -> pa.DictionaryArray:
     return pa.DictionaryArray.from_arrays(numeric(_ZEROS[:n]), dictionary)
 
 
-def archive_table(columns: dict, source: str, sequence: int, target: str,
-                  model_ids: list[str]) -> pa.Table:
-    """Archive rows of one target from ``FeedResult.archive[target]``."""
+def archive_table(columns: dict, source: str | pa.Array, sequence: int | np.ndarray,
+                  target: str, model_ids: list[str]) -> pa.Table:
+    """Archive rows of one target from ``FeedResult.archive[target]``; ``source`` and
+    ``sequence`` are the message's, or a column of each row's (``archive_tables``)."""
     n = len(columns["event_id"])
-    made = {"source": _constant(source, n), "sequence": numeric(np.full(n, sequence, np.uint64)),
+    made = {"source": _constant(source, n) if isinstance(source, str) else source,
+            "sequence": numeric(np.broadcast_to(np.uint64(sequence), n)),
             "target": _constant(target, n),
             "model_id": dictionary(columns["model_index"], model_ids)}
     return pa.Table.from_arrays([made[name] if name in made else numeric(columns[name])
                                  for name in schemas.ARCHIVE.names], schema=schemas.ARCHIVE)
 
 
-def archive_tables(batch: EventBatch, result: FeedResult,
-                   targets: Mapping[str, TargetSetup]) -> list[pa.Table]:
-    """Archive rows of every target that tagged events of ``batch`` (one table each)."""
-    return [archive_table(columns, batch.source, batch.sequence, name,
-                          targets[name].tagger.model_ids)
-            for name, columns in result.archive.items()]
+def archive_tables(batches: Sequence[EventBatch], parts: Sequence[FeedResult],
+                   targets: Mapping[str, TargetSetup],
+                   joined: FeedResult | None = None) -> list[pa.Table]:
+    """Archive rows of every target that tagged events of ``batches`` (one table
+    each), from the ``joined`` result when they were fed as one
+    (``Pipeline.feed_joined``; by default the result of the one batch): each row
+    carries its own message's source and sequence."""
+    joined = parts[0] if joined is None else joined
+    tables = []
+    for name, columns in joined.archive.items():
+        source, sequence = batches[0].source, batches[0].sequence
+        if len(batches) > 1:
+            counts = [len(p.archive[name]["event_id"]) if name in p.archive else 0
+                      for p in parts]
+            sources = [batch.source for batch in batches]
+            words = sorted(set(sources))
+            source = source if len(words) == 1 else dictionary(
+                np.repeat(np.array([words.index(s) for s in sources], np.int32), counts), words)
+            sequence = np.repeat(np.array([batch.sequence for batch in batches], np.uint64),
+                                 counts)
+        tables.append(archive_table(columns, source, sequence, name,
+                                    targets[name].tagger.model_ids))
+    return tables
 
 
 def rejects_table(batch: EventBatch, result: FeedResult, received_utc_ns: int,

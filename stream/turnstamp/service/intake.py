@@ -33,23 +33,27 @@ MAX_SOURCES = 10_000  # per-source counts kept, like the sequence tracker's limi
 STATUS_RANGES = 100  # missing ranges per source in status.json (all on the control socket)
 
 
-def drain(socket: zmq.Socket, handle: Callable[[list, float], None],
+def drain(socket: zmq.Socket, handle: Callable[[list[tuple[list, float]]], None],
           clock: Callable[[], float], limit: int | None = None,
-          deadline: float | None = None) -> int:
-    """Hand the messages ZeroMQ holds to ``handle(frames, received)``, without
-    blocking, up to ``limit`` messages or the ``deadline`` (``clock()`` seconds).
-    Returns how many were handled."""
+          deadline: float | None = None, group: int = 1) -> int:
+    """Hand the messages ZeroMQ holds to ``handle([(frames, received), ...])``, up
+    to ``group`` at a time, without blocking, up to ``limit`` messages or the
+    ``deadline`` (``clock()`` seconds). Returns how many were handled."""
     handled = 0
-    while limit is None or handled < limit:
-        if deadline is not None and clock() > deadline:
-            break
-        try:
-            frames = socket.recv_multipart(flags=zmq.NOBLOCK, copy=False)
-        except zmq.Again:
-            break
-        handle(frames, clock())
-        handled += 1
-    return handled
+    while True:
+        taken: list[tuple[list, float]] = []
+        while len(taken) < group and (limit is None or handled + len(taken) < limit):
+            if deadline is not None and clock() > deadline:
+                break
+            try:
+                frames = socket.recv_multipart(flags=zmq.NOBLOCK, copy=False)
+            except zmq.Again:
+                break
+            taken.append((frames, clock()))
+        if not taken:
+            return handled
+        handle(taken)
+        handled += len(taken)
 
 
 @dataclass(frozen=True)

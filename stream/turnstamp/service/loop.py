@@ -3,7 +3,7 @@
 Theory of operation
 -------------------
 One thread runs the loop: poll the sockets with a timeout, drain the intake
-(receive -> decode -> ``Pipeline.feed`` -> write), then run what is due (statistics
+(receive -> decode -> ``Pipeline.feed_joined`` -> write), then run what is due (statistics
 updates, clock check, status, checkpoint, model reload, table extension). A
 second thread only builds barycentre tables ahead of need; the loop installs them.
 SIGINT/SIGTERM set a flag: the loop drains what ZeroMQ already holds, writes the
@@ -11,7 +11,11 @@ last updates and a checkpoint, closes every file, then the sockets.
 
 Every message ends as exactly one ledger row (accepted, or the reason it was
 refused) after its archive and rejects rows (``ledger``); see ``recovery`` for why
-this makes a ``kill -9`` lose at most the message in flight. The rooms:
+this makes a ``kill -9`` lose at most the messages in flight. Messages that queued
+up while the loop was busy are taken together (``QUEUED_MESSAGES``): each is
+decoded and checked alone, then those admitted are tagged, added to the statistics
+and committed as one batch, so that the fixed cost of a message (about 2 ms) is
+paid once per batch when the service falls behind. The rooms:
 ``intake`` (sockets, decoding, sequence checks), ``ledger`` (the commit),
 ``checkpoint`` and ``recovery``, ``control`` (the REQ/REP commands), ``status``,
 ``upkeep`` (reloads, tables), ``startup`` (configuration to pipeline and writers),
@@ -56,6 +60,8 @@ __all__ = ["Service", "run_service"]
 log = logging.getLogger(__name__)
 
 DRAIN_MESSAGES = 64  # messages handled per poll wake-up before periodic work gets a turn
+QUEUED_MESSAGES = 16  # messages taken from the queue at once (``handle_queued``)
+JOIN_EVENTS = 1 << 16  # events of queued messages fed and committed together, at most
 DRAIN_AT_STOP_S = 2.0  # at stop, what ZeroMQ already holds is taken for this long at most
 POLL_MS = 100
 RELOAD_CHECK_S = 2.0
@@ -148,36 +154,58 @@ class Service:
             while not self._stop.is_set():
                 ready = dict(poller.poll(POLL_MS))
                 if sockets.intake in ready:
-                    drain(sockets.intake, self.handle, self.clock, limit=DRAIN_MESSAGES)
+                    drain(sockets.intake, self.handle_queued, self.clock,
+                          limit=DRAIN_MESSAGES, group=QUEUED_MESSAGES)
                 if sockets.control is not None and sockets.control in ready:
                     control.answer(sockets.control, self.commands)
                 self._periodic(self.clock())
-            drain(sockets.intake, self.handle, self.clock,
-                  deadline=self.clock() + DRAIN_AT_STOP_S)
+            drain(sockets.intake, self.handle_queued, self.clock,
+                  deadline=self.clock() + DRAIN_AT_STOP_S, group=QUEUED_MESSAGES)
             self._finish()
         return 0
 
     def handle(self, frames, received: float) -> None:
-        """One message: decode, check its sequence, feed, write; one ledger row."""
-        received_ns = unix_to_ns(received)
-        self.activity.arrived(received)
-        admitted = self.admission.admit(frames, received_ns)
-        if isinstance(admitted, Refused):
-            self.ledger.commit(admitted.record, rejects=[admitted.row])
-        else:
-            self._feed(admitted, received_ns)
+        """One message (``handle_queued``)."""
+        self.handle_queued([(frames, received)])
+
+    def handle_queued(self, messages: list[tuple[list, float]]) -> None:
+        """Messages taken from the queue together, as (frames, received): each is
+        decoded and its sequence checked alone; those admitted are fed and committed
+        together (up to ``JOIN_EVENTS`` events of one time scale and the same columns;
+        a refused message commits alone, in its place). One ledger row each."""
+        joined: list[tuple[Admitted, int]] = []
+        events = 0
+        for frames, received in messages:
+            received_ns = unix_to_ns(received)
+            self.activity.arrived(received)
+            admitted = self.admission.admit(frames, received_ns)
+            if isinstance(admitted, Refused) or (joined and not _joins(joined, admitted, events)):
+                self._feed(joined)
+                joined, events = [], 0
+            if isinstance(admitted, Refused):
+                self.ledger.commit(admitted.record, rejects=[admitted.row])
+            else:
+                joined.append((admitted, received_ns))
+                events += len(admitted.batch)
+        self._feed(joined)
         self.activity.counted(self.clock(), self.counters.events_received)
 
-    def _feed(self, admitted: Admitted, received_ns: int) -> None:
-        """Feed an admitted message; commit its rows and its ledger record."""
-        batch = admitted.batch
-        result = self.pipeline.feed(batch)
-        rejects = list(admitted.notes)
-        if result.rejected:
-            rejects.append(rejects_table(batch, result, received_ns, admitted.message_bytes))
-        record = MessageRecord.accepted(received_ns, batch.source, batch.sequence, result,
-                                        admitted.missing)
-        self.ledger.commit(record, archive_tables(batch, result, self.pipeline.targets), rejects)
+    def _feed(self, joined: list[tuple[Admitted, int]]) -> None:
+        """Feed admitted messages as one batch; commit their rows and ledger records."""
+        if not joined:
+            return
+        batches = [admitted.batch for admitted, _ in joined]
+        result, parts = self.pipeline.feed_joined(batches)
+        records, rejects = [], []
+        for (admitted, received_ns), part in zip(joined, parts, strict=True):
+            batch = admitted.batch
+            rejects += admitted.notes
+            if part.rejected:
+                rejects.append(rejects_table(batch, part, received_ns, admitted.message_bytes))
+            records.append(MessageRecord.accepted(received_ns, batch.source, batch.sequence,
+                                                  part, admitted.missing))
+        self.ledger.commit_many(
+            records, archive_tables(batches, parts, self.pipeline.targets, result), rejects)
 
     # -- periodic work ------------------------------------------------------------
     def _periodic(self, now: float) -> None:
@@ -264,6 +292,14 @@ class Service:
             writer.close()
         self._write_status("stopped")
         self.say(summary(self))
+
+
+def _joins(joined: list[tuple[Admitted, int]], admitted: Admitted, events: int) -> bool:
+    """Whether ``admitted`` may be fed with the messages ``joined`` (of ``events``)."""
+    batch = admitted.batch
+    return (events + len(batch) <= JOIN_EVENTS and joined[0][0].batch.joinable(batch)
+            and all((a.batch.source, a.batch.sequence) != (batch.source, batch.sequence)
+                    for a, _ in joined))
 
 
 def run_service(config_path: Path) -> int:

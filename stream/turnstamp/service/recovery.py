@@ -3,8 +3,9 @@
 Theory of operation
 -------------------
 For every message the service writes, in this order: its archive rows (one Arrow
-batch per target), its rejects rows, then one ledger row (``files.ledger``). The
-ledger row is the commit mark. A checkpoint, taken between two messages, holds the
+batch per target), its rejects rows, then one ledger row (``files.ledger``); messages
+fed together commit together, their ledger rows in one batch. The ledger batch is
+the commit mark. A checkpoint, taken between two commits, holds the
 statistics, the sequence tracker, the counters and each stream's position (file,
 batches written); the positions never lie behind what the state has counted.
 
@@ -13,13 +14,14 @@ Resuming (``resume``):
 1. remove leftover temporaries (``files.recovery.clean_leftovers``);
 2. restore the checkpoint (none: an empty state and positions before every file);
 3. read every stream after its position, up to its last complete batch;
-4. walk the ledger rows in lockstep with the archive and rejects batches: each
-   message's batches come, in order, just before its ledger row, so a row claims the
-   batches of its (source, sequence) that follow those already claimed (a refused
-   message: exactly one rejects batch). Replay the ledger rows into the counters and
+4. walk the ledger batches in lockstep with the archive and rejects batches: each
+   commit's batches come, in order, just before its ledger batch, so it claims the
+   batches of its messages' (source, sequence) that follow those already claimed
+   (at most one archive batch per target; a refused message: exactly one rejects
+   batch). Replay the ledger rows into the counters and
    the tracker, the claimed rejects batches into the counts by reason, the claimed
    archive batches into the statistics;
-5. cut what no ledger row claims (the message in flight at the kill, always the end
+5. cut what no ledger batch claims (the commit in flight at the kill, always the end
    of the stream's last file) and end every killed file with its end-of-stream
    marker (``files.recovery.finish_file``). A closed file is never rewritten.
 
@@ -81,25 +83,33 @@ def _key(batch: pa.RecordBatch) -> Key:
     return next(iter(keys)) if len(keys) == 1 else (None, -1)
 
 
-def claimed(records: list[MessageRecord], archive: list[Key], rejects: list[Key],
-            rejects_events: list[int]) -> tuple[int, int]:
+def claimed(commits: list[list[MessageRecord]], archive: list[tuple[str, set[Key]]],
+            rejects: list[Key], rejects_events: list[int]) -> tuple[int, int]:
     """How many archive and rejects batches (from the start of each tail) the ledger
-    rows ``records`` commit, walked in lockstep. A refused message has one rejects
-    batch; an accepted one, batches of its key holding at most the events it
-    rejected (gap notes hold none), so a refused repeat of it that follows, in flight,
-    is not taken for its own."""
+    batches ``commits`` (the rows of one commit each) commit, walked in lockstep.
+    ``archive`` gives each archive batch's target and messages.
+
+    A commit's archive batches come first, at most one per target, holding rows of
+    its accepted messages only. Its rejects batches follow message by message: a
+    refused message has one; an accepted one, batches of its key holding at most the
+    events it rejected (gap notes hold none), so a refused repeat of it that follows,
+    in flight, is not taken for its own."""
     a = r = 0
-    for record in records:
-        key = (record.source, record.sequence)
-        if record.outcome == ACCEPTED:
-            while a < len(archive) and archive[a] == key:
-                a += 1
-            budget = record.rejected
-            while r < len(rejects) and rejects[r] == key and rejects_events[r] <= budget:
-                budget -= rejects_events[r]
+    for records in commits:
+        accepted = {(x.source, x.sequence) for x in records if x.outcome == ACCEPTED}
+        targets: set[str] = set()
+        while a < len(archive) and archive[a][0] not in targets and archive[a][1] <= accepted:
+            targets.add(archive[a][0])
+            a += 1
+        for record in records:
+            key = (record.source, record.sequence)
+            if record.outcome == ACCEPTED:
+                budget = record.rejected
+                while r < len(rejects) and rejects[r] == key and rejects_events[r] <= budget:
+                    budget -= rejects_events[r]
+                    r += 1
+            elif r < len(rejects) and rejects[r] == key:
                 r += 1
-        elif r < len(rejects) and rejects[r] == key:
-            r += 1
     return a, r
 
 
@@ -124,13 +134,14 @@ def resume(directory: Path, pipeline: Pipeline) -> Resumed:
         tracker = SequenceTracker.from_state(checkpoint["tracker"])
         counters = Counters.from_state(checkpoint["counters"])
         positions = checkpoint["positions"]
-    records = [MessageRecord.from_row(row) for _, _, batch in
-               tail_batches(directory, "ledger", positions.get("ledger"))
-               for row in batch.to_pylist()]
+    commits = [[MessageRecord.from_row(row) for row in batch.to_pylist()]
+               for _, _, batch in tail_batches(directory, "ledger", positions.get("ledger"))]
+    records = [record for commit in commits for record in commit]
     archive = tail_batches(directory, "archive", positions.get("archive"))
     rejects = tail_batches(directory, "rejects", positions.get("rejects"))
     kept_archive, kept_rejects = claimed(
-        records, [_key(b) for _, _, b in archive], [_key(b) for _, _, b in rejects],
+        commits, [(_target(b), message_keys(b)) for _, _, b in archive],
+        [_key(b) for _, _, b in rejects],
         [sum(e or 0 for e in b.column("events").to_pylist()) for _, _, b in rejects])
     for record in records:
         counters.add_message(record)
@@ -143,7 +154,7 @@ def resume(directory: Path, pipeline: Pipeline) -> Resumed:
                              ("rejects", rejects, kept_rejects)):
         dropped = sum(batch.num_rows for _, _, batch in tail[kept:])
         if dropped:
-            notes.append(f"{stem}: {dropped} rows of the message in flight at the crash cut")
+            notes.append(f"{stem}: {dropped} rows of the commit in flight at the crash cut")
         notes += _finish(directory, stem, tail[kept:])
     for stem in OUTPUTS:
         if stem not in ("archive", "rejects"):
@@ -167,10 +178,15 @@ def _finish(directory: Path, stem: str, uncommitted: list[Entry]) -> list[str]:
     return notes
 
 
+def _target(batch: pa.RecordBatch) -> str:
+    """The target of an archive batch (one per batch)."""
+    return batch.column("target")[0].as_py()
+
+
 def _accumulate(pipeline: Pipeline, batch: pa.RecordBatch) -> int:
     """Fold one archive batch into the statistics; returns the rows replayed."""
     table = pa.Table.from_batches([batch])
-    name = table.column("target")[0].as_py()
+    name = _target(batch)
     if name not in pipeline.targets:
         return 0
     col = {c: table.column(c).to_numpy() for c in
