@@ -7,6 +7,14 @@ from pathlib import Path
 from turnstamp.service.loop import Service
 
 
+def leave_as_killed(service: Service) -> None:
+    """What ``kill -9`` leaves: open files as they are, no end written, locks released."""
+    for writer in service.writers.values():
+        if writer._open is not None:
+            writer._open.handle.close()
+            writer._open = None
+
+
 def wait_until(predicate, timeout=30.0, step=0.02) -> bool:
     """True as soon as ``predicate()`` is; False after ``timeout`` seconds."""
     deadline = time.time() + timeout

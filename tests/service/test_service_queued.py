@@ -3,6 +3,7 @@ handling them one by one says, and a crash in the middle of such a commit loses
 those messages whole (their sender resends them), never part of one."""
 
 import numpy as np
+from running import leave_as_killed
 
 from turnstamp.config import load_config
 from turnstamp.core.accounting import ACCEPTED, MessageRecord
@@ -88,10 +89,7 @@ def test_a_crash_inside_a_queued_commit_loses_those_messages_whole(
         live.handle_queued([(frames, RECEIVED) for frames in messages[5:7]])
     except KeyboardInterrupt:
         pass
-    for writer in live.writers.values():  # what kill -9 leaves
-        if writer._open is not None:
-            writer._open.handle.close()
-            writer._open = None
+    leave_as_killed(live)
     in_flight = read_stream(out, "archive")
     assert "second-builder" in set(in_flight["source"].to_pylist())  # its rows are out
 

@@ -2,6 +2,7 @@
 only the message in flight is lost."""
 
 import numpy as np
+from running import leave_as_killed
 
 from turnstamp.config import load_config
 from turnstamp.core.simulate import NightPlan, simulate_night
@@ -36,10 +37,7 @@ def _crash_with_a_message_in_flight(service: Service, batch) -> None:
         service.writers["archive"].write(table)
     service.writers["rejects"].write(message_reject_table(
         0, batch.source, batch.sequence, "bad_value", "in flight", len(batch), 0))
-    for writer in service.writers.values():
-        if writer._open is not None:
-            writer._open.handle.close()
-            writer._open = None
+    leave_as_killed(service)
 
 
 def test_a_crash_loses_only_the_message_in_flight(tmp_path, service_config, demo_env, lantern,

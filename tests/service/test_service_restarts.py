@@ -6,6 +6,7 @@ import hashlib
 
 import numpy as np
 import pyarrow as pa
+from running import leave_as_killed
 
 from turnstamp.config import load_config
 from turnstamp.core.simulate import NightPlan, simulate_night
@@ -25,15 +26,6 @@ def _night(demo_env, lantern, night_start_tt, seconds=20):
 
 def _frames(batch):
     return encode_message(batch.source, batch.sequence, "UTC", batch.columns())
-
-
-def _kill(service: Service) -> None:
-    """What ``kill -9`` leaves: open files as they are, no end written, locks released."""
-    for writer in service.writers.values():
-        state = writer._open
-        if state is not None:
-            state.handle.close()
-            writer._open = None
 
 
 def _stop(service: Service) -> None:
@@ -63,7 +55,7 @@ def test_a_kill_after_a_clean_stop_never_rewrites_closed_files(tmp_path, service
     second = Service(config)
     second.handle([b"not json", b"\x00\x01"], RECEIVED)  # one malformed message
     second.checkpoint()
-    _kill(second)
+    leave_as_killed(second)
 
     third = Service(config)
     try:
@@ -89,15 +81,15 @@ def test_two_quick_kills_count_every_event_once(tmp_path, service_config, demo_e
         first.handle(_frames(batch), RECEIVED)
     committed = first.counters.to_state()
     statistics = first.pipeline.significance()
-    _kill(first)
+    leave_as_killed(first)
 
     second = Service(config)  # resumes, writes its first checkpoint, dies at once
     assert second.counters.to_state() == committed
     second.checkpoint()
-    _kill(second)
+    leave_as_killed(second)
     third = Service(config)  # and once more, before anything new arrived
     third.checkpoint()
-    _kill(third)
+    leave_as_killed(third)
 
     fourth = Service(config)
     try:
