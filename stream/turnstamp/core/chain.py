@@ -125,7 +125,7 @@ def tag_targets(batch: EventBatch, timed: TimedBatch,
 def tag_parts(batch: EventBatch, timed: TimedBatch, targets: Iterable[TargetSetup],
               lengths: Sequence[int]) -> tuple[FeedResult, list[FeedResult]]:
     """``tag_targets`` of a batch made of consecutive parts (messages joined into one
-    batch, ``join_batches``), in one pass: the accounting of the whole, and of each
+    batch, ``EventBatch.join``), in one pass: the accounting of the whole, and of each
     part of ``lengths`` rows as ``tag_targets`` of that part alone would give it
     (its archive columns are views of the whole's; row indices its own)."""
     targets = list(targets)
