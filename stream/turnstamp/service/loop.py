@@ -174,19 +174,18 @@ class Service:
         together (up to ``JOIN_EVENTS`` events of one time scale and the same columns;
         a refused message commits alone, in its place). One ledger row each."""
         joined: list[tuple[Admitted, int]] = []
-        events = 0
         for frames, received in messages:
             received_ns = unix_to_ns(received)
             self.activity.arrived(received)
             admitted = self.admission.admit(frames, received_ns)
-            if isinstance(admitted, Refused) or (joined and not _joins(joined, admitted, events)):
+            refused = isinstance(admitted, Refused)
+            if joined and (refused or not _joins(joined, admitted)):
                 self._feed(joined)
-                joined, events = [], 0
-            if isinstance(admitted, Refused):
+                joined = []
+            if refused:
                 self.ledger.commit(admitted.record, rejects=[admitted.row])
             else:
                 joined.append((admitted, received_ns))
-                events += len(admitted.batch)
         self._feed(joined)
         self.activity.counted(self.clock(), self.counters.events_received)
 
@@ -294,9 +293,10 @@ class Service:
         self.say(summary(self))
 
 
-def _joins(joined: list[tuple[Admitted, int]], admitted: Admitted, events: int) -> bool:
-    """Whether ``admitted`` may be fed with the messages ``joined`` (of ``events``)."""
+def _joins(joined: list[tuple[Admitted, int]], admitted: Admitted) -> bool:
+    """Whether ``admitted`` may be fed with the messages ``joined``."""
     batch = admitted.batch
+    events = sum(len(a.batch) for a, _ in joined)
     return (events + len(batch) <= JOIN_EVENTS and joined[0][0].batch.joinable(batch)
             and all((a.batch.source, a.batch.sequence) != (batch.source, batch.sequence)
                     for a, _ in joined))
