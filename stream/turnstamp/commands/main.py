@@ -87,6 +87,10 @@ def console(argv: list[str] | None = None) -> None:
     alive is freed with the process, not traced by the interpreter's last garbage
     collections first (a tenth of a second after ``tag`` on 10^7 events); every
     output is closed before ``main`` returns."""
+    # numpy's BLAS starts a thread per CPU that spins for a while after the import
+    # (a tenth of a second of CPU taken from the work); nothing here multiplies
+    # matrices large enough to want them
+    os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     status = main(argv)
     gc.freeze()
     sys.exit(status)

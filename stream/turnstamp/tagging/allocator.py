@@ -12,7 +12,6 @@ libraries this does nothing.
 from __future__ import annotations
 
 import ctypes
-import ctypes.util
 
 __all__ = ["keep_freed_memory"]
 
@@ -24,9 +23,8 @@ _TRIM_THRESHOLD = 512 << 20
 
 def keep_freed_memory() -> bool:
     """Ask glibc to keep freed blocks up to 32 MB for reuse; True if it agreed."""
-    name = ctypes.util.find_library("c")
     try:
-        mallopt = ctypes.CDLL(name).mallopt
+        mallopt = ctypes.CDLL(None).mallopt  # the C library the interpreter runs on
     except (OSError, AttributeError, TypeError):
         return False
     return bool(mallopt(_M_MMAP_THRESHOLD, _MMAP_THRESHOLD)
