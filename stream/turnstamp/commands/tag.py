@@ -45,7 +45,8 @@ def run(args) -> int:
         summary = tag_file(Path(args.events), Path(args.out), setup, env,
                            scale,
                            table_cache=Path(args.table_cache) if args.table_cache else None,
-                           convention=convention, force=args.force, on_batch=advance)
+                           convention=convention, force=args.force, on_batch=advance,
+                           statistics_aside=True)
     if args.json:
         import json
 

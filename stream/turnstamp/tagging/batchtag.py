@@ -122,7 +122,8 @@ def _event_batch(record: pa.RecordBatch, job: TagJob, sequence: int) -> EventBat
 
 
 def tag_record(record: pa.RecordBatch, job: TagJob, sequence: int,
-               into: list[TimeBinnedMoments] | None = None) -> TaggedBatch:
+               into: list[TimeBinnedMoments] | None = None,
+               statistics: bool = True) -> TaggedBatch:
     """Tag one record batch of an event file (see the module docstring).
 
     Parameters
@@ -136,6 +137,9 @@ def tag_record(record: pa.RecordBatch, job: TagJob, sequence: int,
     into : list of TimeBinnedMoments, optional
         One per recipe: add the batch's statistics to these (a run's totals) instead
         of fresh partials; the same sums, without the cost of merging.
+    statistics : bool
+        False: none at all (``moments`` is empty: the caller sums them elsewhere from
+        the archive columns, as ``aside.MomentsAside`` does).
 
     Raises
     ------
@@ -147,6 +151,8 @@ def tag_record(record: pa.RecordBatch, job: TagJob, sequence: int,
     if job.tables is not None:
         job.tables.cover(_valid_tt(timed))
     result = tag_targets(batch, timed, [job.setup])
+    if not statistics:
+        return TaggedBatch(batch, result, [])
     partials = into if into is not None else [job.statistics.moments()
                                               for _ in job.setup.recipes]
     columns = result.archive.get(job.setup.name)

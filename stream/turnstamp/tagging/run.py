@@ -30,8 +30,9 @@ from ..core.timebase import NS_PER_DAY, Scale, parse_instant
 from ..files import schemas
 from ..files.ledger import Ledger
 from ..files.outputs import archive_table, rejects_table
+from .aside import MomentsAside
 from .batchtag import TagJob, tag_record
-from .inputs import READ_ROWS, EventReader, open_events
+from .inputs import READ_ROWS, SLICE_ROWS, EventReader, open_events
 from .outputs import (
     BackgroundWrites,
     OutputFile,
@@ -123,6 +124,7 @@ class TagRun:
         self.rejected: Counter[tuple[str, str]] = Counter()
         self.model_ids = job.setup.tagger.model_ids
         self.metadata = metadata
+        self.aside: MomentsAside | None = None  # adds up the statistics when there is one
 
     @classmethod
     def start(cls, setup: TargetSetup, env: Environment, scale: Scale,
@@ -134,11 +136,14 @@ class TagRun:
 
     def feed(self, record: pa.RecordBatch, sequence: int, ledger: Ledger) -> None:
         """Tag one batch; commit its rows (archive, then rejects) and add its statistics."""
-        tagged = tag_record(record, self.job, sequence, into=list(self.totals.values()))
+        tagged = tag_record(record, self.job, sequence, into=list(self.totals.values()),
+                            statistics=self.aside is None)
         result, name = tagged.result, self.job.setup.name
         archive = []
         columns = result.archive.get(name)
         if columns is not None:
+            if self.aside is not None:
+                self.aside.add(columns)
             archive.append(archive_table(columns, self.job.source, sequence, name,
                                          self.model_ids))
             self.quality.add(name, columns["quality_flags"])
@@ -163,8 +168,8 @@ class TagRun:
 
 def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment, scale: Scale,
              *, table_cache: Path | None = None, convention: TimeConvention | None = None,
-             force: bool = False,
-             on_batch: Callable[..., None] | None = None) -> TagSummary:
+             force: bool = False, on_batch: Callable[..., None] | None = None,
+             statistics_aside: bool = False) -> TagSummary:
     """Tag every event of a file for one target; write the archive and the rejects.
 
     Parameters
@@ -192,6 +197,10 @@ def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment, s
         Progress: called with the number of events of each batch once it is
         committed, and first as ``on_batch(0, total=rows)`` when the file says how
         many rows it holds (``views.progress``'s ``advance``).
+    statistics_aside : bool
+        Add up the statistics in a forked helper process (``aside``), beside the
+        tagging: for a program of its own such as ``turnstamp tag``, not a call inside
+        a server or a cluster worker.
 
     Raises
     ------
@@ -204,19 +213,23 @@ def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment, s
     reader = open_events(events)
     run = TagRun.start(setup, env, scale, table_cache, str(events), events.name,
                        convention or TimeConvention())
-    return tag_into(reader, run, output, rejects_path(output), started, on_batch)
+    return tag_into(reader, run, output, rejects_path(output), started, on_batch,
+                    statistics_aside)
 
 
 def tag_into(reader: EventReader, run: TagRun, output: Path, rejects: Path,
-             started: float, on_batch: Callable[..., None] | None = None) -> TagSummary:
+             started: float, on_batch: Callable[..., None] | None = None,
+             statistics_aside: bool = False) -> TagSummary:
     """Tag every batch of ``reader`` with ``run`` into the archive ``output`` and the
     ``rejects`` file (each written into a hidden partial file and renamed into place
     when the last batch is in; replacing what is there); the run's summary.
-    ``on_batch`` as for ``tag_file``. The step ``tag_file`` and a re-tagging worker
-    share."""
+    ``on_batch`` and ``statistics_aside`` as for ``tag_file``. The step ``tag_file``
+    and a re-tagging worker share."""
     archive = OutputFile(output, _with_metadata(schemas.ARCHIVE, run.metadata), always=True)
     refused = OutputFile(rejects, _with_metadata(schemas.REJECTS, run.metadata))
     created = make_folder(output.parent)
+    if statistics_aside:  # forked before the run starts its threads
+        run.aside = MomentsAside.start(run.job.setup.recipes, run.totals.values(), SLICE_ROWS)
     writes = BackgroundWrites()
     ledger = Ledger(writes.stream(archive, handed=True), writes.stream(refused))
     if on_batch is not None and reader.rows is not None:
@@ -226,6 +239,8 @@ def tag_into(reader: EventReader, run: TagRun, output: Path, rejects: Path,
             run.feed(record, sequence, ledger)
             if on_batch is not None:
                 on_batch(record.num_rows)
+        if run.aside is not None:
+            run.totals = dict(zip(run.totals, run.aside.finish(), strict=True))
         writes.drain()
         published = archive.finish(), refused.finish()
     except BaseException:
@@ -234,6 +249,10 @@ def tag_into(reader: EventReader, run: TagRun, output: Path, rejects: Path,
         refused.abandon()
         remove_folders(created)
         raise
+    finally:
+        if run.aside is not None:
+            run.aside.close()
+            run.aside = None
     if published[1] is None:
         rejects.unlink(missing_ok=True)  # an old run's, replaced (``force``)
     return run.summary(ledger, *published, started)
