@@ -3,9 +3,11 @@
 Each run is a child process (``turnstamp tag`` through the program's entry point,
 ``commands.main.console``) timed by the wall clock from its start to its exit,
 start-up included; its CPU time comes from the kernel's accounting of that child
-(``os.wait4``) and its peak resident memory from its own ``VmHWM`` as it exits:
-``ru_maxrss`` would count this process's peak, which a child inherits when it is
-started by fork and exec. Inputs are one night of ``event_id`` + ``time_ns`` in
+(``os.wait4``, its helper process included) and its peak resident memory from its
+own ``VmHWM`` as it exits (``ru_maxrss`` would count this process's peak, which a
+child inherits when it is started by fork and exec) plus the peak of its helper
+process (``tagging.aside``; its ``ru_maxrss``, which counts the pages it shares with
+the tagging process again: an upper bound). Inputs are one night of ``event_id`` + ``time_ns`` in
 Arrow IPC (batches of 2^20 rows) and Parquet (row groups of 2^20 rows), written
 back to disk (``os.sync``) before the first timed run; barycentre tables come from
 a cache warmed by a first small run, as on a user's second night. Each figure is
@@ -15,10 +17,11 @@ fastest of three runs on a 1 000-event file. The children may write Python's
 bytecode cache (an installed package has one), whatever ``PYTHONDONTWRITEBYTECODE``
 says here.
 
-``tag`` computes on one thread; reading the next batch and writing the last one
-run on two helper threads that spend their time in pyarrow and the file system
-(with the interpreter lock released). The Arrow IPC run is repeated held to one
-CPU (``tag_arrow_one_cpu_events_per_s``) to show what that overlap is worth.
+``tag`` tags on one thread; reading the next batch and writing the last one run on
+two helper threads that spend their time in pyarrow and the file system (with the
+interpreter lock released), and the statistics are added up in a helper process.
+The Arrow IPC run is repeated held to one CPU (``tag_arrow_one_cpu_events_per_s``;
+no helper process then) to show what that overlap is worth.
 """
 
 from __future__ import annotations
@@ -39,10 +42,12 @@ RUNS = 3
 
 _ROWS_PER_BATCH = 1 << 20
 _ENV = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
-_CHILD = ("import atexit, sys\n"
+_CHILD = ("import atexit, resource, sys\n"
           "def peak():\n"
           "    with open('/proc/self/status') as own:\n"
           "        sys.stderr.write(''.join(l for l in own if l.startswith('VmHWM')))\n"
+          "    helper = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss\n"
+          "    sys.stderr.write(f'Helpers: {helper} kB\\n')\n"
           "atexit.register(peak)\n"
           "from turnstamp.commands.main import console\n"
           "console(sys.argv[1:])\n")
@@ -93,8 +98,9 @@ def _run_tag(events: Path, out: Path, site: Path, cache: Path, one_cpu: bool = F
         if child.returncode != 0:
             raise RuntimeError(f"tag failed ({child.returncode}): {said}")
     peak = [line.split()[1] for line in said.splitlines() if line.startswith("VmHWM")]
+    helper = [line.split()[1] for line in said.splitlines() if line.startswith("Helpers:")]
     return {"seconds": seconds, "cpu_s": usage.ru_utime + usage.ru_stime,
-            "rss_mb": int(peak[-1]) / 1024, "summary": json.loads(stdout)}
+            "rss_mb": (int(peak[-1]) + int(helper[-1])) / 1024, "summary": json.loads(stdout)}
 
 
 def _timed_runs(events: Path, out: Path, site: Path, cache: Path, n: int,
