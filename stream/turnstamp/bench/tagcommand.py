@@ -5,9 +5,10 @@ Each run is a child process (``turnstamp tag`` through the program's entry point
 start-up included; its CPU time comes from the kernel's accounting of that child
 (``os.wait4``, its helper process included) and its peak resident memory from its
 own ``VmHWM`` as it exits (``ru_maxrss`` would count this process's peak, which a
-child inherits when it is started by fork and exec) plus the peak of its helper
-process (``tagging.aside``; its ``ru_maxrss``, which counts the pages it shares with
-the tagging process again: an upper bound). Inputs are one night of ``event_id`` + ``time_ns`` in
+child inherits when it is started by fork and exec) plus the memory its helper
+process held alone at its end (``tagging.aside``, as ``tag --verbose`` logs it; the
+pages the helper shares with the tagging process are in the tagging process's
+figure already). Inputs are one night of ``event_id`` + ``time_ns`` in
 Arrow IPC (batches of 2^20 rows) and Parquet (row groups of 2^20 rows), written
 back to disk (``os.sync``) before the first timed run; barycentre tables come from
 a cache warmed by a first small run, as on a user's second night. Each figure is
@@ -42,16 +43,15 @@ RUNS = 3
 
 _ROWS_PER_BATCH = 1 << 20
 _ENV = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
-_CHILD = ("import atexit, resource, sys\n"
+_CHILD = ("import atexit, sys\n"
           "def peak():\n"
           "    with open('/proc/self/status') as own:\n"
           "        sys.stderr.write(''.join(l for l in own if l.startswith('VmHWM')))\n"
-          "    helper = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss\n"
-          "    sys.stderr.write(f'Helpers: {helper} kB\\n')\n"
           "atexit.register(peak)\n"
           "from turnstamp.commands.main import console\n"
           "console(sys.argv[1:])\n")
 _NIGHT_UTC = "2026-12-02T00:00:00"
+_HELPER = "statistics helper process: "  # then its own memory in MB (logged by tag_into)
 
 
 def _write_events(folder: Path, n: int) -> dict[str, Path]:
@@ -81,7 +81,7 @@ def _run_tag(events: Path, out: Path, site: Path, cache: Path, one_cpu: bool = F
     """One ``tag`` child: wall seconds, CPU seconds, peak RSS (MB) and its summary."""
     from ..demo import data_file
 
-    command = [sys.executable, "-c", _CHILD, "tag", str(events), "--model",
+    command = [sys.executable, "-c", _CHILD, "--verbose", "tag", str(events), "--model",
                data_file("lantern.toml"), "--site", str(site), "--out", str(out),
                "--table-cache", str(cache), "--json", "--force"]
     with tempfile.TemporaryFile() as errors:
@@ -98,9 +98,10 @@ def _run_tag(events: Path, out: Path, site: Path, cache: Path, one_cpu: bool = F
         if child.returncode != 0:
             raise RuntimeError(f"tag failed ({child.returncode}): {said}")
     peak = [line.split()[1] for line in said.splitlines() if line.startswith("VmHWM")]
-    helper = [line.split()[1] for line in said.splitlines() if line.startswith("Helpers:")]
+    helper = [float(line.split(_HELPER)[1].split()[0]) for line in said.splitlines()
+              if _HELPER in line]
     return {"seconds": seconds, "cpu_s": usage.ru_utime + usage.ru_stime,
-            "rss_mb": (int(peak[-1]) + int(helper[-1])) / 1024, "summary": json.loads(stdout)}
+            "rss_mb": int(peak[-1]) / 1024 + sum(helper), "summary": json.loads(stdout)}
 
 
 def _timed_runs(events: Path, out: Path, site: Path, cache: Path, n: int,

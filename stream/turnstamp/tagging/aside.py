@@ -16,7 +16,8 @@ any thread. For each batch the tagging process copies the columns the moments ne
 next batch; the helper adds them to its totals, in input order, and hands the slot
 back. These are the additions the run would make itself, in the same order (a slot
 holds a whole batch of a run), so the totals are the same to the last bit. At the
-end the helper sends its totals (``TimeBinnedMoments.to_state``) and exits.
+end the helper sends its totals (``TimeBinnedMoments.to_state``) and the memory it
+held alone, and exits.
 
 Where processes cannot be forked, or only one CPU is there to use, ``start`` returns
 None and the run sums in its own process. A failure of the helper (its error, or its
@@ -58,6 +59,17 @@ def _cpus() -> int:
         return os.cpu_count() or 1
 
 
+def _own_memory_kb() -> int:
+    """Resident memory this process holds alone, shared with no other (kB; 0 where
+    ``/proc`` does not say): what a helper adds to the run's."""
+    try:
+        with open("/proc/self/smaps_rollup") as rollup:
+            return sum(int(line.split()[1]) for line in rollup
+                       if line.startswith(("Private_Clean:", "Private_Dirty:")))
+    except OSError:
+        return 0
+
+
 class _Slots:
     """``_SLOTS`` column sets of ``rows`` events each, in memory shared with the helper
     (an anonymous shared mapping, inherited by the fork)."""
@@ -82,9 +94,9 @@ class _Slots:
 def _serve(slots: _Slots, recipes, totals: list[TimeBinnedMoments], orders, replies,
            theirs) -> None:
     """The helper: add each slot it is given to ``totals`` and hand the slot back; at
-    the end (``None``), send the totals' states. ``theirs``: the run's ends of the
-    pipes, inherited by the fork and closed here, so that the run's end closing is
-    seen here."""
+    the end (``None``), send the totals' states and the memory it holds alone.
+    ``theirs``: the run's ends of the pipes, inherited by the fork and closed here, so
+    that the run's end closing is seen here."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the run's to handle
     try:
         for end in theirs:
@@ -95,7 +107,7 @@ def _serve(slots: _Slots, recipes, totals: list[TimeBinnedMoments], orders, repl
             add_recipe_moments(totals, recipes, c["site_tt_ns"], c["phase"], c.get("weight"),
                                c["recipe_flags"], c["quality_flags"])
             replies.send(slot)
-        replies.send([total.to_state() for total in totals])
+        replies.send(([total.to_state() for total in totals], _own_memory_kb()))
     except EOFError:  # the run ended without asking for the totals
         pass
     except Exception as exc:  # handed to the run, which raises it
@@ -121,6 +133,7 @@ class MomentsAside:
                                  (self._orders, self._replies)),
             name="tag-moments", daemon=True)
         self._process.start()
+        self.own_memory_kb = 0  # the helper's memory, shared with no other: at ``finish``
         orders.close()  # the helper's ends: its death is seen here as the pipe's end
         replies.close()
 
@@ -171,7 +184,8 @@ class MomentsAside:
         while isinstance(reply := self._reply(), int):
             pass  # a slot handed back
         self._process.join()
-        return [TimeBinnedMoments.from_state(state) for state in reply]
+        states, self.own_memory_kb = reply
+        return [TimeBinnedMoments.from_state(state) for state in states]
 
     def close(self) -> None:
         """End the helper (at once after a failure; it has already ended after

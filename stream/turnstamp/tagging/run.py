@@ -14,6 +14,7 @@ same accounting as the service.
 
 from __future__ import annotations
 
+import logging
 import time
 from collections import Counter
 from collections.abc import Callable, Iterable
@@ -48,6 +49,7 @@ from .times import PlausibleRange, TimeConvention
 __all__ = ["tag_file", "tag_into", "tag_table", "tag_job", "TagRun", "run_metadata",
            "offline_target", "plausible_range"]
 
+_log = logging.getLogger(__name__)
 _J2000_JD = 2_451_545.0
 _J2000_MJD = 51_544.5
 _YEAR_NS = 365 * NS_PER_DAY
@@ -241,6 +243,8 @@ def tag_into(reader: EventReader, run: TagRun, output: Path, rejects: Path,
                 on_batch(record.num_rows)
         if run.aside is not None:
             run.totals = dict(zip(run.totals, run.aside.finish(), strict=True))
+            _log.info("statistics helper process: %.1f MB of memory of its own",
+                      run.aside.own_memory_kb / 1024)
         writes.drain()
         published = archive.finish(), refused.finish()
     except BaseException:
