@@ -18,7 +18,7 @@ writes it in whole 8 MB chunks through an ``O_DIRECT`` descriptor (direct I/O ne
 aligned memory, offsets and lengths); the last, partial chunk is written through
 the page cache. It goes over to the page cache for the rest of the file, for good:
 
-* where the file system refuses direct I/O (``EINVAL`` on opening or writing), or
+* where the file system refuses direct I/O (on opening, or ``EINVAL`` on writing), or
   the platform has none;
 * when the disk is what the run waits for: once direct writes have taken more than
   a quarter of a second in all and more than ``BUSY`` of the time since the first
@@ -58,9 +58,8 @@ class DirectFile:
         if _DIRECT:
             try:
                 self._fd = os.open(path, flags | _DIRECT, 0o644)
-            except OSError as exc:
-                if exc.errno != errno.EINVAL:
-                    raise
+            except OSError:  # refused by the file system (or not openable at all: said below)
+                pass
         self.direct = self._fd >= 0
         if not self.direct:
             self._fd = os.open(path, flags, 0o644)

@@ -137,7 +137,8 @@ class TagRun:
         return cls(job, run_metadata(job, env, job.tables.provenance()))
 
     def feed(self, record: pa.RecordBatch, sequence: int, ledger: Ledger) -> None:
-        """Tag one batch; commit its rows (archive, then rejects) and add its statistics."""
+        """Tag one batch; commit its rows (archive, then rejects) and add its statistics
+        (or hand its columns to ``aside``, which adds them)."""
         tagged = tag_record(record, self.job, sequence, into=list(self.totals.values()),
                             statistics=self.aside is None)
         result, name = tagged.result, self.job.setup.name
