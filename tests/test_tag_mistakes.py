@@ -235,3 +235,22 @@ def test_an_output_that_cannot_be_written_is_said_so(capsys, folder, demo_site_f
     refused(capsys, events, "--model", MODEL, "--site", demo_site_file, "--out",
             folder / "t.arrow", naming=["t.arrow", "No space left"])
     assert not list(folder.glob("*t.arrow*"))
+
+
+def test_a_disk_that_fills_under_direct_writes_is_said_so(capsys, folder, demo_site_file,
+                                                          monkeypatch):
+    # the same through the direct writes themselves, with the statistics helper
+    # process running: said, nothing left behind, no helper left over
+    import multiprocessing
+
+    from turnstamp.tagging.directfile import DirectFile
+
+    def full(self, data):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(DirectFile, "_write_all", full)
+    events = events_file(folder, night_times(300_000))  # 84 bytes a row: 25 MB, 3 chunks
+    refused(capsys, events, "--model", MODEL, "--site", demo_site_file, "--out",
+            folder / "t.arrow", naming=["t.arrow", "No space left"])
+    assert not list(folder.glob("*t.arrow*"))
+    assert not multiprocessing.active_children()
