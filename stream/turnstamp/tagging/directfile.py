@@ -20,11 +20,10 @@ the page cache. It goes over to the page cache for the rest of the file, for goo
 
 * where the file system refuses direct I/O (on opening, or ``EINVAL`` on writing), or
   the platform has none;
-* when the disk is what the run waits for: once direct writes have taken more than
-  a quarter of a second in all and more than ``BUSY`` of the time since the first
-  one, the file is not worth the disk's pace (a run would wait for a slow disk,
-  where the page cache takes a burst of writes at memory speed and flushes it
-  later).
+* when the disk is what the run would wait for: once direct writes have taken more
+  than a quarter of a second in all and more than ``BUSY`` of the time since the
+  file was opened (the page cache takes a burst of writes at memory speed and
+  flushes it later).
 
 The bytes of the file are the same either way. It is used through
 ``pyarrow.PythonFile`` (``write``, ``tell``, ``flush``, ``close``).
