@@ -76,6 +76,12 @@ def test_batches_larger_than_a_slot_are_handed_over_in_pieces():
                                        atol=1e-12 * a.sum_w, err_msg=name)
 
 
+def _hand_over_everything(helper):
+    for columns in _batches():
+        helper.add(columns)
+    return helper.finish()
+
+
 def test_an_error_in_the_helper_is_raised_in_the_run(monkeypatch):
     def failing(*args):
         raise ValueError("phases must be finite")
@@ -84,9 +90,7 @@ def test_an_error_in_the_helper_is_raised_in_the_run(monkeypatch):
     helper = _needs_a_helper(MomentsAside.start(RECIPES, _totals(), rows=1000))
     try:
         with pytest.raises(ValueError, match="phases must be finite"):
-            for columns in _batches():
-                helper.add(columns)
-            helper.finish()
+            _hand_over_everything(helper)
     finally:
         helper.close()
 
@@ -97,9 +101,7 @@ def test_a_helper_that_dies_is_reported_not_waited_for():
         helper._process.kill()
         helper._process.join()
         with pytest.raises(RuntimeError, match="ended early"):
-            for columns in _batches():
-                helper.add(columns)
-            helper.finish()
+            _hand_over_everything(helper)
     finally:
         helper.close()
 
