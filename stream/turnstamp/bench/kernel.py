@@ -5,7 +5,8 @@ tagging     barycentre + phase for 1e6 and 1e7 events of one night (one core),
             against the direct route through astropy for events of the same night,
             timed warm (its first-call costs paid on a separate sample) on 2e4 events,
             the median of three runs (with the slowest and fastest), and peak
-            memory beyond the input.
+            memory beyond the input. ``astropy_probe`` times that route again
+            whenever it is called (the ``tag`` section times it beside each run).
 moments     trigonometric moments for 20 harmonics, against 40 separate sin/cos calls,
             and the same per 10-second interval (what the pipeline and tag keep).
 """
@@ -18,7 +19,9 @@ import tracemalloc
 
 import numpy as np
 
-__all__ = ["bench_tagging", "bench_moments"]
+__all__ = ["ASTROPY_EVENTS", "astropy_probe", "bench_tagging", "bench_moments"]
+
+ASTROPY_EVENTS = 20_000
 
 
 def _timings(repeats, function) -> list[float]:
@@ -81,22 +84,43 @@ def _astropy_route(env, target, sample):
     return route
 
 
-def bench_tagging(sizes=(10**6, 10**7), astropy_events=20_000, repeats=3) -> dict:
+def astropy_probe(night=None, events: int = ASTROPY_EVENTS, repeats: int = 3):
+    """The direct astropy route made warm (its first calls paid on 500 other events
+    of the night): a callable timing it ``repeats`` times on ``events`` events of the
+    night, returning events/s of the median run, the slowest and the fastest.
+    ``night``: ``_night()`` when already made."""
     from ..core.timebase import NS_PER_S
 
-    env, target, start = _night()
+    env, target, start = night or _night()
+    rng = np.random.default_rng(5)
+    span = (start, start + 10 * 3600 * NS_PER_S)
+    _astropy_route(env, target, np.sort(rng.integers(*span, 500)))()
+    timed = _astropy_route(env, target, np.sort(rng.integers(*span, events)))
+
+    def probe() -> tuple[float, float, float]:
+        seconds = _timings(repeats, timed)
+        return events / seconds[len(seconds) // 2], events / seconds[-1], events / seconds[0]
+
+    return probe
+
+
+def bench_tagging(sizes=(10**6, 10**7), astropy_events=ASTROPY_EVENTS, repeats=3) -> dict:
+    from ..core.timebase import NS_PER_S
+
+    night = _night()
+    _, target, start = night
     tagger = target.tagger
     rng = np.random.default_rng(1)
-    night = (start, start + 10 * 3600 * NS_PER_S)
+    night_ns = (start, start + 10 * 3600 * NS_PER_S)
     out: dict = {}
     for n in sizes:
-        tt = np.sort(rng.integers(*night, n))
+        tt = np.sort(rng.integers(*night_ns, n))
         seconds = _best_of(repeats, lambda tt=tt: tagger.tag(tt))
         out[f"tagging_{n:.0e}_events_per_s"] = n / seconds
         del tt
     # memory beyond the input, for the largest size
     n = max(sizes)
-    tt = np.sort(rng.integers(*night, n))
+    tt = np.sort(rng.integers(*night_ns, n))
     gc.collect()
     tracemalloc.start()
     result = tagger.tag(tt)
@@ -104,14 +128,9 @@ def bench_tagging(sizes=(10**6, 10**7), astropy_events=20_000, repeats=3) -> dic
     tracemalloc.stop()
     del result, tt
     out["tagging_bytes_per_event"] = peak / n
-    # astropy warm: its first calls (ephemeris, Earth orientation) on another sample
-    _astropy_route(env, target, np.sort(rng.integers(*night, 500)))()
-    timed = _astropy_route(env, target, np.sort(rng.integers(*night, astropy_events)))
-    seconds = _timings(3, timed)
     out["astropy_direct_events"] = astropy_events
-    out["astropy_direct_events_per_s"] = astropy_events / seconds[1]
-    out["astropy_direct_events_per_s_lowest"] = astropy_events / seconds[-1]
-    out["astropy_direct_events_per_s_highest"] = astropy_events / seconds[0]
+    (out["astropy_direct_events_per_s"], out["astropy_direct_events_per_s_lowest"],
+     out["astropy_direct_events_per_s_highest"]) = astropy_probe(night, astropy_events)()
     slowest = min(v for k, v in out.items() if k.startswith("tagging_") and k.endswith("per_s"))
     out["tagging_events_per_s"] = slowest
     out["tagging_ratio_to_astropy"] = slowest / out["astropy_direct_events_per_s"]

@@ -18,6 +18,13 @@ fastest of three runs on a 1 000-event file. The children may write Python's
 bytecode cache (an installed package has one), whatever ``PYTHONDONTWRITEBYTECODE``
 says here.
 
+When given a ``baseline`` (``kernel.astropy_probe``: the warm astropy route, timed
+anew at each call), the route is timed before the first run of each format and after
+every run, and each run's ratio to astropy is taken against the geometric mean of the
+timings just before and just after it (``tag_{format}_ratio_to_astropy``: the median
+run's). Both sides of a ratio then see the same minutes of this machine, whose speed
+drifts by tens of percent within minutes.
+
 ``tag`` tags on one thread; reading the next batch and writing the last one run on
 two helper threads that spend their time in pyarrow and the file system (with the
 interpreter lock released), and the statistics are added up in a helper process.
@@ -33,6 +40,7 @@ import subprocess
 import sys
 import tempfile
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -105,21 +113,29 @@ def _run_tag(events: Path, out: Path, site: Path, cache: Path, one_cpu: bool = F
 
 
 def _timed_runs(events: Path, out: Path, site: Path, cache: Path, n: int,
-                one_cpu: bool = False) -> list[dict]:
+                one_cpu: bool = False, baseline: Callable | None = None) -> list[dict]:
     """``RUNS`` runs of ``tag`` on ``events``, fastest first (each output removed: room
-    on disk for the next); every run must tag all ``n`` events."""
+    on disk for the next); every run must tag all ``n`` events. With ``baseline``,
+    each run also holds the astropy route's events/s timed just before and just after
+    it (``astropy``: their geometric mean)."""
     runs = []
+    before = baseline()[0] if baseline else None
     for _ in range(RUNS):
         runs.append(_run_tag(events, out, site, cache, one_cpu))
         out.unlink()
         assert runs[-1]["summary"]["tagged"] == n, runs[-1]["summary"]
+        if baseline:
+            after = baseline()[0]
+            runs[-1]["astropy"] = (before * after) ** 0.5
+            before = after
     return sorted(runs, key=lambda run: run["seconds"])
 
 
-def bench_tag_command(n: int = 10**7) -> dict:
+def bench_tag_command(n: int = 10**7, baseline: Callable | None = None) -> dict:
     """Figures of the ``tag`` command on ``n`` events in both formats (see the module
     docstring): events/s by the wall clock (median of ``RUNS``), peak RSS beyond the
-    input's size (the largest of the runs)."""
+    input's size (the largest of the runs) and, with ``baseline``, the ratio to the
+    astropy route timed beside the runs (the median run's)."""
     from ..demo import site_toml
 
     out: dict = {"tag_events": n}
@@ -138,8 +154,13 @@ def bench_tag_command(n: int = 10**7) -> dict:
         os.sync()  # the inputs' write-back, not in the first timed run
         for kind, events in inputs.items():
             size_mb = events.stat().st_size / 2**20
-            runs = _timed_runs(events, folder / f"tagged-{kind}.arrow", site, cache, n)
+            runs = _timed_runs(events, folder / f"tagged-{kind}.arrow", site, cache, n,
+                               baseline=baseline)
             run = runs[len(runs) // 2]
+            if baseline:
+                ratios = sorted(n / r["seconds"] / r["astropy"] for r in runs)
+                out[f"tag_{kind}_astropy_events_per_s"] = run["astropy"]
+                out[f"tag_{kind}_ratio_to_astropy"] = ratios[len(ratios) // 2]
             out[f"tag_{kind}_events_per_s"] = n / run["seconds"]
             out[f"tag_{kind}_events_per_s_lowest"] = n / runs[-1]["seconds"]
             out[f"tag_{kind}_events_per_s_highest"] = n / runs[0]["seconds"]
@@ -155,4 +176,7 @@ def bench_tag_command(n: int = 10**7) -> dict:
                 out["tag_arrow_one_cpu_events_per_s"] = n / runs[len(runs) // 2]["seconds"]
             events.unlink()
     out["tag_events_per_s"] = min(out["tag_arrow_events_per_s"], out["tag_parquet_events_per_s"])
+    if baseline:
+        out["tag_ratio_to_astropy"] = min(out["tag_arrow_ratio_to_astropy"],
+                                          out["tag_parquet_ratio_to_astropy"])
     return out
