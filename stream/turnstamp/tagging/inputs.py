@@ -28,7 +28,7 @@ from ..errors import EventFileError
 __all__ = ["READ_ROWS", "SLICE_ROWS", "EventReader", "open_events"]
 
 READ_ROWS = 1 << 20  # rows per Parquet read (numbers the batches, as it always has)
-SLICE_ROWS = 1 << 19  # rows tagged at once: ~40 MB of archive rows in flight per slice
+SLICE_ROWS = 1 << 18  # rows tagged at once: 22 MB of archive rows a slice
 
 
 class EventReader:

@@ -12,9 +12,10 @@ Writing is handed to one background thread (``BackgroundWrites``), in order:
 pyarrow releases the interpreter lock while it encodes, so the writing overlaps
 the tagging of the next batch. The bytes go to the disk around the page cache
 while the disk keeps up (``directfile``): copying an archive into the page cache
-cost nearly as much CPU as tagging it. An archive batch is handed
-over only when the thread is free to take it, so memory holds at most two batches
-of archive rows (one being written, one being tagged).
+cost nearly as much CPU as tagging it. An archive batch waits to be handed over
+while another one is still waiting for the thread, so memory holds at most three
+batches of archive rows (one being written, one waiting, one being tagged): the
+one waiting lets tagging go on while the disk pauses.
 """
 
 from __future__ import annotations
@@ -162,16 +163,16 @@ class BackgroundWrites:
 
     ``stream(output, handed=...)`` gives a writer (``write(table)``) for the ledger.
     A write through a ``handed`` stream returns once the thread has taken the table
-    (it never waits in a queue: a batch's archive rows are held by one side only,
-    so at most two batches' worth are in memory); other writes queue behind it. A
-    failure of the thread is raised in the caller at its next write or at ``drain``.
+    before it (at most one such table waits in the queue, so at most three batches'
+    worth are in memory); other writes queue behind it. A failure of the thread is
+    raised in the caller at its next write or at ``drain``.
     """
 
     _STOP = None
 
     def __init__(self):
         self._queue: queue.Queue = queue.Queue()
-        self._taken = threading.Semaphore(0)
+        self._taken = threading.Semaphore(1)  # one handed table may wait
         self._error: BaseException | None = None
         self._thread = threading.Thread(target=self._run, name="tag-writer", daemon=True)
         self._thread.start()
@@ -197,10 +198,10 @@ class BackgroundWrites:
             raise error
 
     def write(self, output: OutputFile, table, handed: bool = False) -> None:
-        self._raise()
-        self._queue.put((output, table, handed))
         if handed:
             self._taken.acquire()
+        self._raise()
+        self._queue.put((output, table, handed))
 
     def stream(self, output: OutputFile, handed: bool = False) -> _Stream:
         return _Stream(self, output, handed)
