@@ -20,6 +20,8 @@ TARGETS = {
     "moments_events_per_s": 10e6,
     "tag_arrow_events_per_s": 3e6,
     "tag_parquet_events_per_s": 3e6,
+    "tag_arrow_one_cpu_events_per_s": 3e6,
+    "tag_parquet_one_cpu_events_per_s": 3e6,
     "tag_arrow_rss_over_input_mb": 300.0,
     "tag_parquet_rss_over_input_mb": 300.0,
     "tag_ratio_to_astropy": 600.0,

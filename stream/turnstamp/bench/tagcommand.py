@@ -28,7 +28,7 @@ drifts by tens of percent within minutes.
 ``tag`` tags on one thread; reading the next batch and writing the last one run on
 two helper threads that spend their time in pyarrow and the file system (with the
 interpreter lock released), and the statistics are added up in a helper process.
-The Arrow IPC run is repeated held to one CPU (``tag_arrow_one_cpu_events_per_s``;
+Each format's runs are repeated held to one CPU (``tag_{format}_one_cpu_events_per_s``;
 no helper process then) to show what that overlap is worth.
 """
 
@@ -169,11 +169,11 @@ def bench_tag_command(n: int = 10**7, baseline: Callable | None = None) -> dict:
             out[f"tag_{kind}_input_mb"] = size_mb
             out[f"tag_{kind}_rss_mb"] = max(r["rss_mb"] for r in runs)
             out[f"tag_{kind}_rss_over_input_mb"] = out[f"tag_{kind}_rss_mb"] - size_mb
-            if kind == "arrow" and hasattr(os, "sched_setaffinity"):
+            if hasattr(os, "sched_setaffinity"):
                 # the same, held to one CPU: no overlap of reading and writing with tagging
                 runs = _timed_runs(events, folder / "one-cpu.arrow", site, cache, n,
                                    one_cpu=True)
-                out["tag_arrow_one_cpu_events_per_s"] = n / runs[len(runs) // 2]["seconds"]
+                out[f"tag_{kind}_one_cpu_events_per_s"] = n / runs[len(runs) // 2]["seconds"]
             events.unlink()
     out["tag_events_per_s"] = min(out["tag_arrow_events_per_s"], out["tag_parquet_events_per_s"])
     if baseline:
