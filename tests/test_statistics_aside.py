@@ -7,6 +7,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from turnstamp.core import chain
 from turnstamp.core.accounting import EXCLUDED_FROM_STATISTICS
 from turnstamp.core.chain import add_recipe_moments
 from turnstamp.core.targets import Recipe
@@ -86,7 +87,7 @@ def test_an_error_in_the_helper_is_raised_in_the_run(monkeypatch):
     def failing(*args):
         raise ValueError("phases must be finite")
 
-    monkeypatch.setattr(aside, "add_recipe_moments", failing)  # what the fork copies
+    monkeypatch.setattr(chain, "add_recipe_moments", failing)  # what the helper imports
     helper = _needs_a_helper(MomentsAside.start(RECIPES, _totals(), rows=1000))
     try:
         with pytest.raises(ValueError, match="phases must be finite"):
@@ -111,6 +112,29 @@ def test_the_helper_ends_with_the_run():
     helper.add(next(_batches()))
     helper.close()  # a run that failed: no totals asked for
     assert not helper._process.is_alive()
+
+
+def test_a_helper_forked_before_its_recipes_are_known_adds_the_same():
+    """``turnstamp tag`` forks first and tells the recipes later (``begin``)."""
+    here = _totals()
+    helper = _needs_a_helper(MomentsAside.fork(rows=2500))
+    try:
+        helper.begin(RECIPES, _totals())
+        for columns in _batches():
+            add_recipe_moments(here, RECIPES, columns["site_tt_ns"], columns["phase"],
+                               columns["weight"], columns["recipe_flags"],
+                               columns["quality_flags"])
+            helper.add(columns)
+        assert [t.to_state() for t in helper.finish()] == [t.to_state() for t in here]
+    finally:
+        helper.close()
+
+
+def test_a_helper_never_begun_ends_with_the_run():
+    """A command that fails while loading its configuration never tells the recipes."""
+    helper = _needs_a_helper(MomentsAside.fork(rows=1000))
+    helper.close()
+    assert helper._process.exitcode == 0
 
 
 def test_no_helper_where_it_would_not_pay(monkeypatch):

@@ -34,19 +34,20 @@ def run(args) -> int:
     from pathlib import Path
 
     from ..tagging.allocator import keep_freed_memory
-    from ..tagging.run import tag_file
-    from ..views.progress import progress
+    from ..tagging.begin import FileTagging
 
     keep_freed_memory()
+    # the input is read while the configuration and site tables load (tagging.begin)
+    with FileTagging(Path(args.events), Path(args.out), args.force,
+                     statistics_aside=True) as tagging:
+        from ..views.progress import progress
 
-    setup, env, scale, convention = event_file_job(args)
-    quiet = io.StringIO() if args.quiet or args.json else None  # the bar drawn nowhere
-    with progress("tagging events", stream=quiet) as advance:
-        summary = tag_file(Path(args.events), Path(args.out), setup, env,
-                           scale,
-                           table_cache=Path(args.table_cache) if args.table_cache else None,
-                           convention=convention, force=args.force, on_batch=advance,
-                           statistics_aside=True)
+        setup, env, scale, convention = event_file_job(args)
+        quiet = io.StringIO() if args.quiet or args.json else None  # the bar drawn nowhere
+        with progress("tagging events", stream=quiet) as advance:
+            summary = tagging.tag(setup, env, scale, table_cache=Path(args.table_cache)
+                                  if args.table_cache else None, convention=convention,
+                                  on_batch=advance)
     if args.json:
         import json
 

@@ -9,25 +9,29 @@ interpreter lock back and forth at every one of the moments' many small calls, a
 two threads on two CPUs spent more time passing it than they saved. A process has a
 lock of its own.
 
-``MomentsAside.start`` forks one helper when the run starts, before the run starts
-any thread. For each batch the tagging process copies the columns the moments need
-(TT time, phase, recipe and quality flags, and the weight when a recipe uses it:
-24–32 bytes an event) into one of two slots of shared memory and goes on with the
-next batch; the helper adds them to its totals, in input order, and hands the slot
-back. These are the additions the run would make itself, in the same order (a slot
-holds a whole batch of a run), so the totals are the same to the last bit. At the
-end the helper sends its totals (``TimeBinnedMoments.to_state``) and the memory it
-held alone, and exits.
+``MomentsAside.fork`` forks one helper as early as it can: a command forks it
+first of all, while its process is small and has a single thread, and tells it the
+run's recipes and empty totals (``begin``) once it has loaded them; the helper
+imports what it needs meanwhile. For each batch the tagging process copies the
+columns the moments need (TT time, phase, recipe and quality flags, and the weight
+when a recipe uses it: 24–32 bytes an event) into one of two slots of shared memory
+and goes on with the next batch; the helper adds them to its totals, in input order,
+and hands the slot back. These are the additions the run would make itself, in the
+same order (a slot holds a whole batch of a run), so the totals are the same to the
+last bit. At the end the helper sends its totals (``TimeBinnedMoments.to_state``)
+and the memory it held alone, and exits.
 
-Where processes cannot be forked, or only one CPU is there to use, ``start`` returns
+Where processes cannot be forked, or only one CPU is there to use, ``fork`` returns
 None and the run sums in its own process. A failure of the helper (its error, or its
 death) is raised in the run at its next batch or at ``finish``; the helper ends when
 the run's end of the pipe closes, however the run ends.
 
 A fork copies the forking thread alone, and a lock that another thread held at that
-instant stays held in the copy: so the helper touches nothing but numpy, its pipes
-and the shared memory, and leaves by ``os._exit`` (no flushing of the standard
-streams, no exit handlers); a run starts it before its own threads. Only a program
+instant stays held in the copy: so the helper touches nothing but numpy, the core's
+moments, its pipes and the shared memory, and leaves by ``os._exit`` (no flushing of
+the standard streams, no exit handlers); it is forked before the run starts its own
+threads, and before the input's first pages are read (the run writing into pages it
+shared with the helper would copy each). Only a program
 of its own asks for one (``turnstamp tag``), never a library call inside a server or
 a cluster worker.
 """
@@ -42,7 +46,6 @@ from collections.abc import Iterable
 
 import numpy as np
 
-from ..core.chain import add_recipe_moments
 from ..core.timebinned import TimeBinnedMoments
 
 __all__ = ["MomentsAside"]
@@ -74,36 +77,44 @@ class _Slots:
     """``_SLOTS`` column sets of ``rows`` events each, in memory shared with the helper
     (an anonymous shared mapping, inherited by the fork)."""
 
-    def __init__(self, rows: int, weighted: bool):
+    def __init__(self, rows: int):
         self.rows = rows
-        fields = _FIELDS if weighted else _FIELDS[:-1]
-        size = rows * sum(np.dtype(dtype).itemsize for _, dtype in fields)
-        self.memory = mmap.mmap(-1, size * _SLOTS)
+        size = rows * sum(np.dtype(dtype).itemsize for _, dtype in _FIELDS)
+        self.memory = mmap.mmap(-1, size * _SLOTS)  # pages untouched (no weights) stay free
         self.views = []
         for slot in range(_SLOTS):
             offset, views = slot * size, {}
-            for name, dtype in fields:
+            for name, dtype in _FIELDS:
                 views[name] = np.frombuffer(self.memory, dtype, rows, offset)
                 offset += rows * np.dtype(dtype).itemsize
             self.views.append(views)
 
-    def columns(self, slot: int, n: int) -> dict[str, np.ndarray]:
-        return {name: view[:n] for name, view in self.views[slot].items()}
+    def columns(self, slot: int, n: int, weighted: bool) -> dict[str, np.ndarray]:
+        return {name: view[:n] for name, view in self.views[slot].items()
+                if weighted or name != "weight"}
 
 
-def _serve(slots: _Slots, recipes, totals: list[TimeBinnedMoments], orders, replies,
-           theirs) -> None:
-    """The helper: add each slot it is given to ``totals`` and hand the slot back; at
-    the end (``None``), send the totals' states and the memory it holds alone.
-    ``theirs``: the run's ends of the pipes, inherited by the fork and closed here, so
-    that the run's end closing is seen here."""
+def _weighted(recipes) -> bool:
+    return any(recipe.use_weights for recipe in recipes)
+
+
+def _serve(slots: _Slots, orders, replies, theirs) -> None:
+    """The helper: take the recipes and empty totals, add each slot it is given to the
+    totals and hand the slot back; at the end (``None``), send the totals' states and
+    the memory it holds alone. ``theirs``: the run's ends of the pipes, inherited by
+    the fork and closed here, so that the run's end closing is seen here."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the run's to handle
     try:
         for end in theirs:
             end.close()
+        from ..core.chain import add_recipe_moments  # beside the run's own start-up
+
+        recipes, states = orders.recv()
+        totals = [TimeBinnedMoments.from_state(state) for state in states]
+        weighted = _weighted(recipes)
         while (order := orders.recv()) is not None:
             slot, n = order
-            c = slots.columns(slot, n)
+            c = slots.columns(slot, n, weighted)
             add_recipe_moments(totals, recipes, c["site_tt_ns"], c["phase"], c.get("weight"),
                                c["recipe_flags"], c["quality_flags"])
             replies.send(slot)
@@ -122,15 +133,15 @@ def _serve(slots: _Slots, recipes, totals: list[TimeBinnedMoments], orders, repl
 class MomentsAside:
     """The helper process of one run (module docstring); made by ``start``."""
 
-    def __init__(self, recipes, totals: Iterable[TimeBinnedMoments], rows: int):
-        self._slots = _Slots(rows, any(r.use_weights for r in recipes))
+    def __init__(self, rows: int):
+        self._slots = _Slots(rows)
         self._free = list(range(_SLOTS))
+        self._weighted = False  # a recipe uses weights: set by ``begin``
         context = multiprocessing.get_context("fork")
         orders, self._orders = context.Pipe(duplex=False)  # (receiving end, sending end)
         self._replies, replies = context.Pipe(duplex=False)
         self._process = context.Process(
-            target=_serve, args=(self._slots, recipes, list(totals), orders, replies,
-                                 (self._orders, self._replies)),
+            target=_serve, args=(self._slots, orders, replies, (self._orders, self._replies)),
             name="tag-moments", daemon=True)
         self._process.start()
         self.own_memory_kb = 0  # the helper's memory, shared with no other: at ``finish``
@@ -138,13 +149,28 @@ class MomentsAside:
         replies.close()
 
     @classmethod
-    def start(cls, recipes, totals: Iterable[TimeBinnedMoments],
-              rows: int) -> MomentsAside | None:
-        """A helper adding batches (handed over ``rows`` events at a time) to copies of
-        ``totals``; None where it would not pay (one CPU) or cannot be (no fork)."""
+    def fork(cls, rows: int) -> MomentsAside | None:
+        """A helper that will add batches handed over ``rows`` events at a time, once it
+        has been told its recipes (``begin``); None where it would not pay (one CPU)
+        or cannot be (no fork)."""
         if _cpus() < 2 or "fork" not in multiprocessing.get_all_start_methods():
             return None
-        return cls(recipes, totals, rows)
+        return cls(rows)
+
+    @classmethod
+    def start(cls, recipes, totals: Iterable[TimeBinnedMoments],
+              rows: int) -> MomentsAside | None:
+        """``fork``, then ``begin``."""
+        helper = cls.fork(rows)
+        if helper is not None:
+            helper.begin(recipes, totals)
+        return helper
+
+    def begin(self, recipes, totals: Iterable[TimeBinnedMoments]) -> None:
+        """Tell the helper the run's recipes and the totals to add to (copies of them)."""
+        recipes = list(recipes)
+        self._weighted = _weighted(recipes)
+        self._send((recipes, [total.to_state() for total in totals]))
 
     def _ended_early(self) -> RuntimeError:
         self._process.join(timeout=1)
@@ -174,7 +200,7 @@ class MomentsAside:
                 self._free.append(self._reply())
             slot = self._free.pop()
             rows = min(self._slots.rows, n - lo)
-            for name, view in self._slots.columns(slot, rows).items():
+            for name, view in self._slots.columns(slot, rows, self._weighted).items():
                 view[:] = columns[name][lo : lo + rows]
             self._send((slot, rows))
 

@@ -33,15 +33,9 @@ from ..files.ledger import Ledger
 from ..files.outputs import archive_table, rejects_table
 from .aside import MomentsAside
 from .batchtag import TagJob, tag_record
-from .inputs import READ_ROWS, SLICE_ROWS, EventReader, open_events
-from .outputs import (
-    BackgroundWrites,
-    OutputFile,
-    check_outputs,
-    make_folder,
-    rejects_path,
-    remove_folders,
-)
+from .begin import FileTagging
+from .inputs import READ_ROWS, EventReader
+from .outputs import BackgroundWrites, OutputFile, make_folder, remove_folders
 from .summary import TagSummary
 from .tables import DayTables
 from .times import PlausibleRange, TimeConvention
@@ -211,28 +205,26 @@ def tag_file(events: Path, output: Path, setup: TargetSetup, env: Environment, s
         An unreadable input, a missing or mistyped column, times in another
         convention, or an output that exists (without ``force``); no output is left.
     """
-    started = time.perf_counter()
-    check_outputs(events, output, force)
-    reader = open_events(events)
-    run = TagRun.start(setup, env, scale, table_cache, str(events), events.name,
-                       convention or TimeConvention())
-    return tag_into(reader, run, output, rejects_path(output), started, on_batch,
-                    statistics_aside)
+    with FileTagging(events, output, force, statistics_aside) as tagging:
+        return tagging.tag(setup, env, scale, table_cache=table_cache, convention=convention,
+                           on_batch=on_batch)
 
 
 def tag_into(reader: EventReader, run: TagRun, output: Path, rejects: Path,
              started: float, on_batch: Callable[..., None] | None = None,
-             statistics_aside: bool = False) -> TagSummary:
+             aside: MomentsAside | None = None) -> TagSummary:
     """Tag every batch of ``reader`` with ``run`` into the archive ``output`` and the
     ``rejects`` file (each written into a hidden partial file and renamed into place
     when the last batch is in; replacing what is there); the run's summary.
-    ``on_batch`` and ``statistics_aside`` as for ``tag_file``. The step ``tag_file``
-    and a re-tagging worker share."""
+    ``on_batch`` as for ``tag_file``; ``aside``: a statistics helper forked for this
+    run and not yet begun (``aside.MomentsAside.fork``), which adds up the statistics
+    and is ended here. The step ``tag_file`` and a re-tagging worker share."""
     archive = OutputFile(output, _with_metadata(schemas.ARCHIVE, run.metadata), always=True)
     refused = OutputFile(rejects, _with_metadata(schemas.REJECTS, run.metadata))
     created = make_folder(output.parent)
-    if statistics_aside:  # forked before the run starts its threads
-        run.aside = MomentsAside.start(run.job.setup.recipes, run.totals.values(), SLICE_ROWS)
+    if aside is not None:
+        run.aside = aside
+        aside.begin(run.job.setup.recipes, run.totals.values())
     writes = BackgroundWrites()
     ledger = Ledger(writes.stream(archive, handed=True), writes.stream(refused))
     if on_batch is not None and reader.rows is not None:
