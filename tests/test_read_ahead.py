@@ -10,7 +10,6 @@ import pyarrow as pa
 import pytest
 
 from turnstamp.errors import EventFileError
-from turnstamp.tagging import inputs
 from turnstamp.tagging.begin import FileTagging
 from turnstamp.tagging.inputs import _ReadAhead, open_events
 
@@ -104,8 +103,7 @@ def test_a_started_file_is_read_before_anyone_asks(tmp_path):
         reader.close()
 
 
-def test_closing_a_started_reader_ends_its_thread(tmp_path, monkeypatch):
-    monkeypatch.setattr(inputs, "AHEAD_BYTES", BATCH_BYTES)
+def test_closing_a_started_reader_ends_its_thread(tmp_path):
     reader = open_events(_write(tmp_path / "events.arrow")).start()
     reader.close()
     assert not reader._ahead._thread.is_alive()

@@ -7,9 +7,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from turnstamp.core import chain
+from turnstamp.core import recipemoments
 from turnstamp.core.accounting import EXCLUDED_FROM_STATISTICS
-from turnstamp.core.chain import add_recipe_moments
+from turnstamp.core.recipemoments import add_recipe_moments
 from turnstamp.core.targets import Recipe
 from turnstamp.core.timebase import NS_PER_DAY
 from turnstamp.demo import data_file
@@ -18,6 +18,7 @@ from turnstamp.tagging.aside import MomentsAside
 from turnstamp.tagging.batchtag import StatisticsShape
 
 RECIPES = [Recipe("all"), Recipe("weighted", use_weights=True), Recipe("cut", min_score=0.5)]
+WEIGHTED = [recipe.use_weights for recipe in RECIPES]
 
 
 def _batches(n_batches=4, rows=2500, seed=9):
@@ -50,7 +51,7 @@ def _both_ways(rows):
     helper = _needs_a_helper(MomentsAside.start(RECIPES, _totals(), rows=rows))
     try:
         for columns in _batches():
-            add_recipe_moments(here, RECIPES, columns["site_tt_ns"], columns["phase"],
+            add_recipe_moments(here, WEIGHTED, columns["site_tt_ns"], columns["phase"],
                                columns["weight"], columns["recipe_flags"],
                                columns["quality_flags"])
             helper.add(columns)
@@ -87,7 +88,7 @@ def test_an_error_in_the_helper_is_raised_in_the_run(monkeypatch):
     def failing(*args):
         raise ValueError("phases must be finite")
 
-    monkeypatch.setattr(chain, "add_recipe_moments", failing)  # what the helper imports
+    monkeypatch.setattr(recipemoments, "add_recipe_moments", failing)  # what the helper imports
     helper = _needs_a_helper(MomentsAside.start(RECIPES, _totals(), rows=1000))
     try:
         with pytest.raises(ValueError, match="phases must be finite"):
@@ -121,7 +122,7 @@ def test_a_helper_forked_before_its_recipes_are_known_adds_the_same():
     try:
         helper.begin(RECIPES, _totals())
         for columns in _batches():
-            add_recipe_moments(here, RECIPES, columns["site_tt_ns"], columns["phase"],
+            add_recipe_moments(here, WEIGHTED, columns["site_tt_ns"], columns["phase"],
                                columns["weight"], columns["recipe_flags"],
                                columns["quality_flags"])
             helper.add(columns)

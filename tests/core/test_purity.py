@@ -11,7 +11,8 @@ CORE_MODULES = [
     "clock.verdict", "clock.wobble", "clock.wording", "correctiontable", "cycles", "earth",
     "binnedarrays", "emission", "eventfit", "flags", "harmonicsums", "intervalsegments", "kepler",
     "moments", "momentstate", "orbit", "peaks",
-    "periodicity", "phase", "pipeline", "profile", "readout", "refold", "significance", "simulate",
+    "periodicity", "phase", "pipeline", "profile", "readout", "recipemoments", "refold",
+    "significance", "simulate",
     "spin", "stacking", "tagger", "targets", "template", "templatefit", "templatelikelihood",
     "templatenoise", "timebase", "timebinned", "twofloat",
 ]

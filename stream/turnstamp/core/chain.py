@@ -14,10 +14,12 @@ the very same code:
    stream has directions), barycentric time and phase (``tagger``) and a bit per
    recipe; the accounting of the batch (tagged, filtered, rejected) as a
    ``FeedResult`` holding the archive columns;
-3. ``add_recipe_moments``: each recipe's moments take the tagged rows with its bit
-   set, except those tagged outside their model's validity (into accumulators of
-   the caller's: the running ones, or fresh partials that merge by addition);
-   recipes taking every row share one pass of the moments' kernel.
+3. ``add_recipe_moments`` (``recipemoments``, a module of its own that a process
+   adding up statistics alone can import without the rest): each recipe's moments
+   take the tagged rows with its bit set, except those tagged outside their model's
+   validity (into accumulators of the caller's: the running ones, or fresh partials
+   that merge by addition); recipes taking every row share one pass of the moments'
+   kernel.
 
 Nothing here keeps state, reads a clock or touches a file.
 """
@@ -30,11 +32,11 @@ from typing import NamedTuple
 
 import numpy as np
 
-from .accounting import EXCLUDED_FROM_STATISTICS, FeedResult
+from .accounting import FeedResult
 from .batch import EventBatch, RejectCode, check_values, describe_rejects
-from .targets import Recipe, TargetSetup, cos_angular_distance
+from .recipemoments import add_recipe_moments, recipe_rows
+from .targets import TargetSetup, cos_angular_distance
 from .timebase import ClockCorrection, LeapSecondTable, site_tt
-from .timebinned import TimeBinnedMoments, update_together
 
 __all__ = ["ChainSettings", "TimedBatch", "TaggedRows", "time_base", "join_timed",
            "tag_targets", "tag_parts", "used_columns", "recipe_rows", "add_recipe_moments"]
@@ -237,40 +239,3 @@ def _tag_target(target: TargetSetup, batch: EventBatch, valid: np.ndarray,
 def used_columns(targets: Iterable[TargetSetup]) -> frozenset[str]:
     """The optional event columns the targets' region cuts and recipes read."""
     return frozenset().union(*(target.columns() for target in targets))
-
-
-def recipe_rows(recipes: Sequence[Recipe], recipe_flags: np.ndarray,
-                quality: np.ndarray) -> list[np.ndarray | slice | None]:
-    """Per recipe, the rows its statistics take: those with its bit set, except the
-    ones tagged outside their model's validity. ``slice(None)`` when that is every
-    row (no copy needed), None when none."""
-    usable = (quality & EXCLUDED_FROM_STATISTICS) == 0
-    everything = bool(usable.all())
-    chosen: list[np.ndarray | slice | None] = []
-    for bit in range(len(recipes)):
-        mask = ((recipe_flags >> np.uint32(bit)) & 1).astype(bool)
-        if everything:
-            chosen.append(slice(None) if mask.all() else mask if mask.any() else None)
-            continue
-        mask &= usable
-        chosen.append(mask if mask.any() else None)
-    return chosen
-
-
-def add_recipe_moments(moments: Sequence[TimeBinnedMoments], recipes: Sequence[Recipe],
-                       tt_ns, phase, weight, recipe_flags,
-                       quality) -> list[np.ndarray | slice | None]:
-    """Add tagged events (archive columns) to each recipe's moments (weighted when the
-    recipe uses weights); returns the rows each recipe took (``recipe_rows``).
-
-    Recipes that take every row share one pass of the moments' kernel
-    (``timebinned.update_together``)."""
-    chosen = recipe_rows(recipes, recipe_flags, quality)
-    every = [i for i, rows in enumerate(chosen) if isinstance(rows, slice)]
-    if every:
-        update_together([moments[i] for i in every], tt_ns, phase,
-                        [weight if recipes[i].use_weights else None for i in every])
-    for rows, recipe, binned in zip(chosen, recipes, moments, strict=True):
-        if rows is not None and not isinstance(rows, slice):
-            binned.update(tt_ns[rows], phase[rows], weight[rows] if recipe.use_weights else None)
-    return chosen

@@ -151,8 +151,9 @@ class Pipeline:
         ``feed`` and to replay archive rows after a restart."""
         target = self.targets[name]
         self.quality.add(name, quality)
-        chosen = add_recipe_moments(self.moments[name], target.recipes, tt_ns, phase, weight,
-                                    recipe_flags, quality)
+        chosen = add_recipe_moments(self.moments[name],
+                                    [recipe.use_weights for recipe in target.recipes], tt_ns,
+                                    phase, weight, recipe_flags, quality)
         rows = chosen[target.clock_recipe]
         if rows is not None:
             recipe = target.recipes[target.clock_recipe]

@@ -94,10 +94,6 @@ class _Slots:
                 if weighted or name != "weight"}
 
 
-def _weighted(recipes) -> bool:
-    return any(recipe.use_weights for recipe in recipes)
-
-
 def _serve(slots: _Slots, orders, replies, theirs) -> None:
     """The helper: take the recipes and empty totals, add each slot it is given to the
     totals and hand the slot back; at the end (``None``), send the totals' states and
@@ -107,16 +103,16 @@ def _serve(slots: _Slots, orders, replies, theirs) -> None:
     try:
         for end in theirs:
             end.close()
-        from ..core.chain import add_recipe_moments  # beside the run's own start-up
+        from ..core import recipemoments  # light: beside the run's own start-up
 
-        recipes, states = orders.recv()
+        weighted, states = orders.recv()
         totals = [TimeBinnedMoments.from_state(state) for state in states]
-        weighted = _weighted(recipes)
         while (order := orders.recv()) is not None:
             slot, n = order
-            c = slots.columns(slot, n, weighted)
-            add_recipe_moments(totals, recipes, c["site_tt_ns"], c["phase"], c.get("weight"),
-                               c["recipe_flags"], c["quality_flags"])
+            c = slots.columns(slot, n, any(weighted))
+            recipemoments.add_recipe_moments(totals, weighted, c["site_tt_ns"], c["phase"],
+                                             c.get("weight"), c["recipe_flags"],
+                                             c["quality_flags"])
             replies.send(slot)
         replies.send(([total.to_state() for total in totals], _own_memory_kb()))
     except EOFError:  # the run ended without asking for the totals
@@ -167,10 +163,11 @@ class MomentsAside:
         return helper
 
     def begin(self, recipes, totals: Iterable[TimeBinnedMoments]) -> None:
-        """Tell the helper the run's recipes and the totals to add to (copies of them)."""
-        recipes = list(recipes)
-        self._weighted = _weighted(recipes)
-        self._send((recipes, [total.to_state() for total in totals]))
+        """Tell the helper the run's recipes (whether each weights its events: all it
+        needs of them) and the totals to add to (copies of them)."""
+        weighted = [recipe.use_weights for recipe in recipes]
+        self._weighted = any(weighted)
+        self._send((weighted, [total.to_state() for total in totals]))
 
     def _ended_early(self) -> RuntimeError:
         self._process.join(timeout=1)

@@ -157,8 +157,9 @@ def tag_record(record: pa.RecordBatch, job: TagJob, sequence: int,
                                               for _ in job.setup.recipes]
     columns = result.archive.get(job.setup.name)
     if columns is not None:
-        add_recipe_moments(partials, job.setup.recipes, columns["site_tt_ns"], columns["phase"],
-                           columns["weight"], columns["recipe_flags"], columns["quality_flags"])
+        add_recipe_moments(partials, [recipe.use_weights for recipe in job.setup.recipes],
+                           columns["site_tt_ns"], columns["phase"], columns["weight"],
+                           columns["recipe_flags"], columns["quality_flags"])
     return TaggedBatch(batch, result, partials)
 
 

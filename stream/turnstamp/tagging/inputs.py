@@ -10,10 +10,11 @@ each with the batch's number, so that the work in memory stays bounded whatever
 the writer of the file chose (a table written in one piece is one batch).
 
 Batches are read on a background thread while the current one is tagged (pyarrow
-releases the interpreter lock while it reads and decodes), up to ``AHEAD_BYTES``
-ahead. A command starts the reading (``start``) before it loads its configuration
-and site tables, so that the first batches are decoded on a second CPU during that
-start-up, a tenth of a second or more on Parquet, rather than after it.
+releases the interpreter lock while it reads and decodes): one batch of an Arrow IPC
+file (a copy from the page cache), Parquet up to ``AHEAD_BYTES`` ahead (decoding it
+costs a third of a second per 10^7 events). A command starts the reading (``start``)
+before it loads its configuration and site tables, so that the first Parquet
+batches are decoded on a second CPU during that start-up rather than after it.
 """
 
 from __future__ import annotations
@@ -32,7 +33,7 @@ __all__ = ["AHEAD_BYTES", "READ_ROWS", "SLICE_ROWS", "EventReader", "open_events
 
 READ_ROWS = 1 << 20  # rows per Parquet read (numbers the batches, as it always has)
 SLICE_ROWS = 1 << 18  # rows tagged at once: 22 MB of archive rows a slice
-AHEAD_BYTES = 64 << 20  # input read ahead at most (more only for a single larger batch)
+AHEAD_BYTES = 64 << 20  # Parquet decoded ahead at most (more only for one larger batch)
 
 
 class EventReader:
@@ -42,6 +43,7 @@ class EventReader:
     def __init__(self, path: Path):
         self.path = path
         self.rows: int | None = None  # total rows when the file says so cheaply
+        self._ahead_bytes = 0  # what may wait beyond one batch
         self._source = None
         self._batches = self._open()
         self._ahead: _ReadAhead | None = None
@@ -54,6 +56,7 @@ class EventReader:
             # groups), no decoding threads (tag is single-core)
             parquet = pq.ParquetFile(self.path, pre_buffer=False)
             self.rows = parquet.metadata.num_rows
+            self._ahead_bytes = AHEAD_BYTES
             return parquet.iter_batches(batch_size=READ_ROWS, use_threads=False)
         self._source = pa.OSFile(str(self.path), "rb")
         try:
@@ -67,7 +70,7 @@ class EventReader:
         """Begin reading ahead now, on the background thread (the first iteration
         does otherwise)."""
         if self._ahead is None:
-            self._ahead = _ReadAhead(self._slices(), AHEAD_BYTES)
+            self._ahead = _ReadAhead(self._slices(), self._ahead_bytes)
         return self
 
     def __iter__(self) -> Iterator[tuple[int, pa.RecordBatch]]:
