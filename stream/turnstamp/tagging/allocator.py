@@ -5,8 +5,15 @@ maps each from the kernel afresh and hands it back when it is freed, or trims th
 top of its heap, so every batch pays its page faults again (about a second of
 system time over 10^7 events). Raising the mapping and trimming thresholds lets
 the next batch reuse the same pages. Peak memory is unchanged: the same arrays
-are alive at once, they are only not returned between batches. On other C
-libraries this does nothing.
+are alive at once, they are only not returned between batches.
+
+Arrow's own allocations (Parquet decoding above all: its buffers are made on the
+reading thread and freed on the tagging thread) then go through glibc too, rather
+than through pyarrow's bundled mimalloc, which handed such memory back and took
+fresh pages for the next batches: on this project's machines a fresh page is a
+fault the host must serve. Side by side, Parquet ran 7 % faster with 7 % less CPU;
+Arrow IPC the same, with 57 MB more peak memory. On other C libraries this does
+nothing.
 """
 
 from __future__ import annotations
@@ -22,10 +29,16 @@ _TRIM_THRESHOLD = 512 << 20
 
 
 def keep_freed_memory() -> bool:
-    """Ask glibc to keep freed blocks up to 32 MB for reuse; True if it agreed."""
+    """Ask glibc to keep freed blocks up to 32 MB for reuse, and give Arrow's
+    allocations to it; True if it agreed."""
     try:
         mallopt = ctypes.CDLL(None).mallopt  # the C library the interpreter runs on
     except (OSError, AttributeError, TypeError):
         return False
-    return bool(mallopt(_M_MMAP_THRESHOLD, _MMAP_THRESHOLD)
-                and mallopt(_M_TRIM_THRESHOLD, _TRIM_THRESHOLD))
+    if not (mallopt(_M_MMAP_THRESHOLD, _MMAP_THRESHOLD)
+            and mallopt(_M_TRIM_THRESHOLD, _TRIM_THRESHOLD)):
+        return False
+    import pyarrow as pa
+
+    pa.set_memory_pool(pa.system_memory_pool())
+    return True
