@@ -95,10 +95,11 @@ class _Slots:
 
 
 def _serve(slots: _Slots, orders, replies, theirs) -> None:
-    """The helper: take the recipes and empty totals, add each slot it is given to the
-    totals and hand the slot back; at the end (``None``), send the totals' states and
-    the memory it holds alone. ``theirs``: the run's ends of the pipes, inherited by
-    the fork and closed here, so that the run's end closing is seen here."""
+    """The helper: take the recipes (whether each weights its events) and the empty
+    totals, add each slot it is given to the totals and hand the slot back; at the end
+    (``None``), send the totals' states and the memory it holds alone. ``theirs``: the
+    run's ends of the pipes, inherited by the fork and closed here, so that the run's
+    end closing is seen here."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the run's to handle
     try:
         for end in theirs:
