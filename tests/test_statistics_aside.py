@@ -84,32 +84,35 @@ def _hand_over_everything(helper):
     return helper.finish()
 
 
+@pytest.fixture
+def helper():
+    """A helper begun with ``RECIPES`` and 1000-event slots, ended after the test."""
+    started = _needs_a_helper(MomentsAside.start(RECIPES, _totals(), rows=1000))
+    yield started
+    started.close()
+
+
 def test_an_error_in_the_helper_is_raised_in_the_run(monkeypatch):
     def failing(*args):
         raise ValueError("phases must be finite")
 
     monkeypatch.setattr(recipemoments, "add_recipe_moments", failing)  # what the helper imports
-    helper = _needs_a_helper(MomentsAside.start(RECIPES, _totals(), rows=1000))
-    try:
+    started = _needs_a_helper(MomentsAside.start(RECIPES, _totals(), rows=1000))
+    try:  # started after the patch: the fork copies it
         with pytest.raises(ValueError, match="phases must be finite"):
-            _hand_over_everything(helper)
+            _hand_over_everything(started)
     finally:
-        helper.close()
+        started.close()
 
 
-def test_a_helper_that_dies_is_reported_not_waited_for():
-    helper = _needs_a_helper(MomentsAside.start(RECIPES, _totals(), rows=1000))
-    try:
-        helper._process.kill()
-        helper._process.join()
-        with pytest.raises(RuntimeError, match="ended early"):
-            _hand_over_everything(helper)
-    finally:
-        helper.close()
+def test_a_helper_that_dies_is_reported_not_waited_for(helper):
+    helper._process.kill()
+    helper._process.join()
+    with pytest.raises(RuntimeError, match="ended early"):
+        _hand_over_everything(helper)
 
 
-def test_the_helper_ends_with_the_run():
-    helper = _needs_a_helper(MomentsAside.start(RECIPES, _totals(), rows=1000))
+def test_the_helper_ends_with_the_run(helper):
     helper.add(next(_batches()))
     helper.close()  # a run that failed: no totals asked for
     assert not helper._process.is_alive()
